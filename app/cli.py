@@ -1,0 +1,193 @@
+"""Command line: `fluxfence run | serve | sample`.
+
+Every user-facing problem ends in one sentence on stderr and a non-zero exit status; a
+traceback means a bug.
+"""
+
+from __future__ import annotations
+
+import argparse
+import shutil
+import sys
+import time
+from pathlib import Path
+
+from budget import __version__
+from budget.errors import FluxfenceError, RequestError
+
+CAUTION = (
+    "Caution: reanalysis budgets are estimates with known imbalances; they are not a substitute "
+    "for gauge records or official forecasts. Defer to local agencies and licensed practice."
+)
+
+
+def _pairs(items, flag):
+    out = {}
+    for item in items or []:
+        if "=" not in item:
+            raise RequestError(f"{flag} expects role=name (for example {flag} q=hus), got {item!r}.")
+        k, v = item.split("=", 1)
+        out[k.strip()] = v.strip()
+    return out
+
+
+class _Progress:
+    """A one-line progress bar on stderr for runs longer than a moment."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled and sys.stderr.isatty()
+        self.t0 = time.monotonic()
+
+    def __call__(self, done, total):
+        if not self.enabled:
+            return
+        el = time.monotonic() - self.t0
+        rate = done / el if el > 0 else 0.0
+        left = (total - done) / rate if rate > 0 else 0.0
+        n = int(30 * done / max(total, 1))
+        sys.stderr.write(f"\r[{'#' * n}{'.' * (30 - n)}] {done}/{total} steps  {rate:.1f}/s  {left:.0f} s left ")
+        sys.stderr.flush()
+        if done >= total:
+            sys.stderr.write("\n")
+
+
+def _summary(ds) -> str:
+    from budget.export import to_frame
+
+    df = to_frame(ds)
+    t = ds["time"].values
+    rows = [
+        ("region", ds.attrs.get("region_name", "region")),
+        ("area", f"{ds.attrs['region_area_m2'] / 1e6:,.0f} km²"),
+        ("period", f"{str(t[0])[:16]} .. {str(t[-1])[:16]} UTC ({t.size} steps)"),
+        ("method", ds.attrs.get("method", "")),
+    ]
+    means = [
+        ("precipitable water", "precipitable_water_mm", "mm"),
+        ("vapour convergence", "vapour_convergence_mm_day", "mm/day"),
+        ("  area method", "area_convergence_mm_day", "mm/day"),
+        ("PW tendency", "pw_tendency_mm_day", "mm/day"),
+        ("P − E", "p_minus_e_mm_day", "mm/day"),
+        ("P − E", "p_minus_e_m3_s", "m³/s"),
+        ("net import", "vapour_import_kg_s", "kg/s"),
+    ]
+    lines = [f"{k:<22}{v}" for k, v in rows]
+    lines.append(f"{'mean over the period':<22}")
+    for label, col, unit in means:
+        if col in df:
+            lines.append(f"  {label:<20}{df[col].mean():>14.4g} {unit}")
+    return "\n".join(lines)
+
+
+def cmd_run(args) -> int:
+    from budget.export import write
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import load_region
+
+    if not args.region and not args.bbox:
+        raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
+    if args.region and args.bbox:
+        raise RequestError("Give either --region or --bbox, not both.")
+    out = Path(args.out)
+    if out.exists() and not args.overwrite:
+        raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
+    region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
+    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    for w in list(fields.warnings) + list(region.warnings):
+        print(f"warning: {w}", file=sys.stderr)
+    ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet))
+    import json
+
+    for w in json.loads(ds.attrs.get("warnings", "[]")):
+        if w not in fields.warnings:
+            print(f"warning: {w}", file=sys.stderr)
+    write(ds, out)
+    if args.netcdf:
+        write(ds, args.netcdf)
+    if not args.quiet:
+        print(_summary(ds))
+        print(f"wrote {out}" + (f" and {args.netcdf}" if args.netcdf else ""))
+        print(CAUTION)
+    return 0
+
+
+def cmd_sample(args) -> int:
+    from sample_fields import ensure_sample
+
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    paths = ensure_sample()
+    written = []
+    for p in (paths.levels, paths.column, paths.basin):
+        target = out / Path(p).name
+        if target.exists() and not args.overwrite:
+            raise RequestError(f"{str(target)!r} exists already; choose another --out or pass --overwrite.")
+        written.append(target)
+    for p, target in zip((paths.levels, paths.column, paths.basin), written):
+        shutil.copyfile(p, target)
+    print("Invented demonstration scenario (not real weather):")
+    for t in written:
+        print(f"  {t}")
+    print(f"try: fluxfence run {written[0]} --region {written[2]} --out basin.csv")
+    return 0
+
+
+def cmd_serve(args) -> int:
+    from app.server import serve
+
+    serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port)
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="fluxfence", description="Regional water-vapour budgets from gridded fields.")
+    p.add_argument("--version", action="version", version=f"fluxfence {__version__}")
+    sub = p.add_subparsers(dest="command", required=True)
+
+    r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
+    r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
+    r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
+    r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
+    r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
+    r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
+    r.add_argument("--start", help="first time (ISO 8601, UTC)")
+    r.add_argument("--end", help="last time (ISO 8601, UTC)")
+    r.add_argument("--var", action="append", metavar="ROLE=NAME", help="take variable NAME for ROLE (u, v, q, ps, qu, qv, w)")
+    r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong")
+    r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
+    r.add_argument("--out", required=True, help="output file, .csv or .nc")
+    r.add_argument("--netcdf", help="also write the full budget as NetCDF here")
+    r.add_argument("--overwrite", action="store_true", help="replace an existing output file")
+    r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    r.set_defaults(func=cmd_run)
+
+    s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")
+    s.add_argument("fields", nargs="*")
+    s.add_argument("--data-dir", help="folder the dashboard may read fields from")
+    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--port", type=int, default=8050)
+    s.set_defaults(func=cmd_serve)
+
+    m = sub.add_parser("sample", help="write the invented demo event and basin outline")
+    m.add_argument("--out", default="demo", help="folder to write into")
+    m.add_argument("--overwrite", action="store_true")
+    m.set_defaults(func=cmd_sample)
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except FluxfenceError as exc:
+        print(f"fluxfence: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("fluxfence: interrupted; no output was written.", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
