@@ -1,0 +1,204 @@
+"""Figure builders (app/figures.py) are pure functions: check traces, units, outlines, limits.
+
+The inputs are small Datasets built here to the contracts in DEVELOPERS.md (budget.maps
+column_snapshot and budget.ledger compute output), so no engine run is needed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+
+from app import figures
+
+
+def _snapshot(lon0=-30.0, nlon=31, nlat=21):
+    lon = lon0 + np.arange(nlon) * 1.0
+    lat = 20.0 + np.arange(nlat) * 1.0
+    glon, glat = np.meshgrid(lon, lat)
+    u = 200.0 + 0 * glon
+    v = 50.0 * np.sin(np.radians(glon))
+    conv = 1e-4 * (glon - glon.mean()) + 3e-5  # kg m-2 s-1, asymmetric about zero
+    dims = ("lat", "lon")
+    return xr.Dataset(
+        {
+            "ivt_u": (dims, u, {"units": "kg m-1 s-1"}),
+            "ivt_v": (dims, v, {"units": "kg m-1 s-1"}),
+            "ivt": (dims, np.hypot(u, v), {"units": "kg m-1 s-1"}),
+            "precipitable_water": (dims, 20 + glat, {"units": "kg m-2"}),
+            "convergence": (dims, conv, {"units": "kg m-2 s-1"}),
+        },
+        coords={"lat": lat, "lon": lon},
+    )
+
+
+def _budget(nt=5, levels=True):
+    times = pd.date_range("2031-03-01", periods=nt, freq="6h").values
+    npiece, nlev = 40, 4
+    dist = (np.arange(npiece) + 0.5) * 25_000.0
+    area = 1.2302e12  # a 10° × 10° box at 0–10° N (CHECKS.md, derived)
+    t = np.arange(nt, dtype=float)
+    data = {
+        "precipitable_water": ("time", 30 + t, {"units": "kg m-2"}),
+        "pw_tendency": ("time", np.full(nt, 1 / 21600), {"units": "kg m-2 s-1"}),
+        "boundary_convergence": ("time", 1e-4 * (1 + t), {"units": "kg m-2 s-1"}),
+        "area_convergence": ("time", 1.1e-4 * (1 + t), {"units": "kg m-2 s-1"}),
+        "vapour_convergence": ("time", 1e-4 * (1 + t), {"units": "kg m-2 s-1"}),
+        "p_minus_e": ("time", 1e-4 * (1 + t) - 1 / 21600, {"units": "kg m-2 s-1"}),
+        "boundary_import_density": (
+            ("time", "piece"),
+            np.outer(1 + t, np.sin(np.linspace(0, 2 * np.pi, npiece))) * 100,
+            {"units": "kg m-1 s-1"},
+        ),
+    }
+    coords = {
+        "time": times,
+        "edge": ["S", "E", "N", "W"],
+        "piece_distance": ("piece", dist),
+        "vertex_distance": ("vertex", np.array([0, 250e3, 500e3, 750e3])),
+    }
+    if levels:
+        data["normal_flux_density"] = (
+            ("time", "level", "piece"),
+            np.random.default_rng(1).normal(size=(nt, nlev, npiece)) * 1e-3 + 5e-4,
+            {"units": "kg m-1 s-1 Pa-1"},
+        )
+        coords["level"] = ("level", np.array([30000.0, 50000.0, 70000.0, 85000.0]))
+    return xr.Dataset(data, coords=coords, attrs={"region_area_m2": area})
+
+
+def _traces(fig, name):
+    return [t for t in fig.data if t.name == name]
+
+
+def test_map_ivt_has_units_arrows_coastline_and_active_outline():
+    coast = [np.array([[-20.0, 30.0], [-10.0, 35.0], [0.0, 30.0]])]
+    region = {"id": "r1", "name": "box", "rings": [([-20, -10, -10, -20], [25, 25, 35, 35])]}
+    fig = figures.map_figure(_snapshot(), "ivt", coastline=coast, regions=[region],
+                             active_region="r1", time_label="2031-03-01 00:00 UTC")
+    heat = fig.data[0]
+    assert heat.type == "heatmap"
+    assert "kg m⁻¹ s⁻¹" in heat.colorbar.title.text
+    assert heat.colorscale[0][1] != heat.colorscale[-1][1]
+    assert _traces(fig, "transport arrows"), "IVT map draws arrows"
+    coastline = _traces(fig, "coastline")[0]
+    assert -20.0 in coastline.x and 30.0 in coastline.y
+    outline = _traces(fig, "region: box")[0]
+    # the outline is closed: first vertex repeated at the end
+    assert outline.x[0] == outline.x[-1] == -20 and outline.y[0] == outline.y[-1] == 25
+    assert fig.layout.xaxis.title.text == "longitude (°E)"
+    assert fig.layout.yaxis.title.text == "latitude (°N)"
+    assert "2031-03-01" in fig.layout.title.text
+
+
+def test_map_convergence_colour_limits_are_zero_centred_and_in_mm_per_day():
+    snap = _snapshot()
+    fig = figures.map_figure(snap, "convergence")
+    heat = fig.data[0]
+    assert heat.zmid == 0
+    assert heat.zmin == pytest.approx(-heat.zmax)
+    assert heat.zmax > 0
+    assert "mm/day" in heat.colorbar.title.text
+    # kg m-2 s-1 × 86400 = mm/day (CHECKS.md, conversions)
+    assert np.nanmax(np.asarray(heat.z)) == pytest.approx(float(snap["convergence"].max()) * 86400)
+
+
+def test_map_pw_and_unknown_field():
+    fig = figures.map_figure(_snapshot(), "pw")
+    assert "kg m⁻²" in fig.data[0].colorbar.title.text
+    assert not _traces(fig, "transport arrows")
+    with pytest.raises(ValueError):
+        figures.map_figure(_snapshot(), "wind")
+
+
+def test_coastline_follows_a_0_to_360_grid():
+    # a grid on 150..250 °E: a coastline point at −170 must appear at 190
+    coast = [np.array([[-175.0, 40.0], [-170.0, 41.0]])]
+    snap = _snapshot(lon0=150.0, nlon=101)
+    fig = figures.map_figure(snap, "pw", coastline=coast)
+    xs = [x for x in _traces(fig, "coastline")[0].x if x is not None]
+    assert 190.0 in xs and -170.0 not in xs
+
+
+def test_region_across_the_antimeridian_drawn_on_a_minus180_grid():
+    region = {"id": "a", "name": "dateline", "rings": [([170, 190, 190, 170], [30, 30, 40, 40])]}
+    snap = _snapshot(lon0=-180.0, nlon=360)
+    fig = figures.map_figure(snap, "ivt", regions=[region], active_region="a")
+    outlines = _traces(fig, "region: dateline")
+    # the ring and its copy shifted by −360° (so the part east of 180 shows at the west edge)
+    assert len(outlines) == 2
+    assert sorted(min(o.x) for o in outlines) == [-190, 170]
+
+
+def test_symmetric_limit_ignores_nan_and_single_spikes():
+    values = np.r_[np.linspace(-1, 1, 1000), np.nan, 1e6]
+    assert figures.symmetric_limit(values) < 10
+
+
+def test_series_units_switch_and_time_marker():
+    b = _budget()
+    fig = figures.series_figure(b, "mm/day", time_index=2)
+    pme = [t for t in fig.data if t.name == "P − E"][0]
+    np.testing.assert_allclose(pme.y, b["p_minus_e"].values * 86400)
+    assert "mm/day" in fig.layout.yaxis2.title.text
+    assert fig.layout.yaxis.title.text == "W (kg m⁻²)"
+    marker_x = {s.x0 for s in fig.layout.shapes if s.line.dash == "dash"}
+    assert pd.Timestamp(b["time"].values[2]) in {pd.Timestamp(x) for x in marker_x}
+
+    fig = figures.series_figure(b, "m3/s")
+    pme = [t for t in fig.data if t.name == "P − E"][0]
+    # m3/s = kg m-2 s-1 × area / 1000 kg m-3 (CHECKS.md, conversions)
+    np.testing.assert_allclose(pme.y, b["p_minus_e"].values * 1.2302e12 / 1000)
+    assert "m³/s" in fig.layout.yaxis2.title.text
+    names = {t.name for t in fig.data}
+    assert {"convergence (boundary)", "convergence (area)", "dW/dt", "W (area mean)"} <= names
+
+
+def test_profile_marks_vertices_and_names_edges():
+    b = _budget()
+    fig = figures.profile_figure(b, 1)
+    line = _traces(fig, "import density")[0]
+    np.testing.assert_allclose(line.x, b["piece_distance"].values / 1000)
+    np.testing.assert_allclose(line.y, b["boundary_import_density"].values[1])
+    vlines = [s.x0 for s in fig.layout.shapes if s.type == "line" and s.x0 == s.x1]
+    assert sorted(vlines) == [0, 250, 500, 750]
+    assert {a.text for a in fig.layout.annotations} >= {"S", "E", "N"}
+    assert "kg m⁻¹ s⁻¹" in fig.layout.yaxis.title.text
+    assert "km" in fig.layout.xaxis.title.text
+
+
+def test_curtain_zero_centred_in_hpa_and_column_inputs_explained():
+    b = _budget()
+    fig = figures.curtain_figure(b, 0)
+    heat = fig.data[0]
+    assert list(heat.y) == [300, 500, 700, 850]
+    assert fig.layout.yaxis.autorange == "reversed"
+    assert heat.zmin == pytest.approx(-heat.zmax)
+    # per Pa -> per hPa is × 100
+    np.testing.assert_allclose(np.asarray(heat.z), b["normal_flux_density"].values[0] * 100)
+    assert "hPa⁻¹" in heat.colorbar.title.text
+
+    fig = figures.curtain_figure(_budget(levels=False), 0)
+    assert "levels" in fig.layout.annotations[0].text
+
+
+def test_period_rows_mean_and_trapezoid_total():
+    b = _budget(nt=5)
+    rows = {r["term"]: r for r in figures.period_rows(b, "mm/day", 1, 3)}
+    pme = rows["P − E"]
+    rate = b["p_minus_e"].values[1:4] * 86400
+    assert pme["mean_value"] == pytest.approx(rate.mean())
+    # steps are 6 h = 0.25 day apart: trapezoid total in mm
+    assert pme["total_value"] == pytest.approx(0.25 * (rate[0] / 2 + rate[1] + rate[2] / 2))
+    assert pme["mean"].endswith("mm/day") and pme["total"].endswith("mm")
+    w = rows["Precipitable water (start → end)"]
+    assert w["total_value"] == pytest.approx(2.0)
+
+    rows = {r["term"]: r for r in figures.period_rows(b, "kg/s")}
+    conv = rows["Convergence, boundary method"]
+    seconds = 6 * 3600.0
+    rate = b["boundary_convergence"].values * 1.2302e12
+    assert conv["total_value"] == pytest.approx(np.trapezoid(rate, dx=seconds))
+    assert conv["total"].endswith(" kg")
