@@ -51,8 +51,8 @@ def test_analytic_profile_with_surface_between_levels(ps_hpa):
     # below-ground values as a reanalysis would extrapolate them: garbage that must not count
     q = np.where(p > ps, 0.5, q)
     w = column_integral(q, levels.thickness(ps))
-    # analytic truth; the layer sum's error here is well under 1 % (bottom slab first order)
-    assert float(w) == pytest.approx(exact_w(100.0, ps), rel=1e-2)
+    # analytic truth; measured error 0.05–0.16 % on these levels (bottom slab first order)
+    assert float(w) == pytest.approx(exact_w(100.0, ps), rel=3e-3)
 
 
 def test_nan_below_ground_is_ignored():
@@ -79,9 +79,10 @@ def test_against_metpy_precipitable_water():
     r = q / (1 - q)  # mixing ratio, the quantity MetPy integrates
     levels = PressureLevels(np.sort(p) * 100)
     ours = column_integral(r[::-1], levels.thickness(np.array(ps_hpa * 100)))
-    # trapezoid vs layer sum differ at the percent level on 25 levels, dominated by the
-    # bottom partial layer; 2 % covers the scheme difference (CHECKS.md allows 1–2 %)
-    assert float(ours) == pytest.approx(mp_mm, rel=2e-2)
+    # trapezoid vs layer sum on the same mixing ratio: measured 0.02 % apart here; 0.5 %
+    # leaves room for MetPy's log-pressure interpolation to the bottom (CHECKS.md allows 1–2 %
+    # when comparing specific humidity with mixing ratio, which this test avoids)
+    assert float(ours) == pytest.approx(mp_mm, rel=5e-3)
 
 
 def test_hybrid_levels_sum_exactly_and_match_the_pressure_level_answer():
