@@ -386,8 +386,8 @@ def compile_stencil(region, grid: Grid, radius: float = EARTH_RADIUS) -> Stencil
         )
 
     du, dv = divergence_operator(grid, cov_idx, radius)
-    div_u_full = np.asarray(sp.csr_matrix(cov_area) @ du).ravel() / area
-    div_v_full = np.asarray(sp.csr_matrix(cov_area) @ dv).ravel() / area
+    div_u_full = du.T @ cov_area / area
+    div_v_full = dv.T @ cov_area / area
     div_cells = np.union1d(du.indices, dv.indices)
 
     touched = np.unique(np.concatenate([idx.ravel(), cov_idx, div_cells]))
