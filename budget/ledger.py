@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 import xarray as xr
@@ -18,6 +19,7 @@ from . import __version__
 from .constants import STANDARD_GRAVITY
 from .errors import FieldsError, RequestError
 from .stencil import Grid, Stencil, compile_stencil
+from .stream import run_blocks
 
 METHODS = ("boundary", "area")
 
@@ -105,6 +107,34 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
     return Columns(qu, qv, w, ps=ps, levels=levels)
 
 
+def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> dict:
+    """Every per-time-step sum of one block of time steps: {name: array (time, ...)}."""
+    c = _columns(fields, st, ds, tslice, tslice.start, profiles)
+    flux = (st.bu @ c.qu.T + st.bv @ c.qv.T).T  # outward flux per piece, (time, piece)
+    res = {
+        "imp": -flux.sum(axis=1),
+        "inflow": np.clip(-flux, 0, None).sum(axis=1),
+        "outflow": np.clip(flux, 0, None).sum(axis=1),
+        "edge": -(st.edge_sum @ flux.T).T,
+        "adiv": c.qu @ st.div_u + c.qv @ st.div_v,
+        "w": c.w @ st.cover / st.area,
+    }
+    if profiles:
+        length = st.piece_length
+        res["density"] = -flux / length
+        if c.levels is not None:
+            fu, fv = st.boundary.normal_factors()
+            lv = c.levels
+            nb, nlev, npiece = lv["qu"].shape[0], lv["qu"].shape[1], length.size
+            flat = lambda a: a.reshape(-1, a.shape[-1]).T  # (cell, time*level)  # noqa: E731
+            qu_p = (st.interp @ flat(np.where(lv["air"], lv["qu"], 0.0))).T.reshape(nb, nlev, npiece)
+            qv_p = (st.interp @ flat(np.where(lv["air"], lv["qv"], 0.0))).T.reshape(nb, nlev, npiece)
+            airp = (st.interp @ flat(lv["air"].astype(float))).T.reshape(nb, nlev, npiece) > 0.5
+            val = -(fu * qu_p + fv * qv_p) / length / STANDARD_GRAVITY
+            res["curtain"] = np.where(airp, val, np.nan)
+    return res
+
+
 def _tendency(values: np.ndarray, times: np.ndarray) -> np.ndarray:
     """Centred differences inside, one-sided at the ends (common practice, no source)."""
     if values.shape[0] < 2:
@@ -144,39 +174,14 @@ def compute(
     chunk = int(max(1, min(nt, CHUNK_BYTES // max(per_step, 1))))
     chunk = min(chunk, getattr(fields, "time_chunk", None) or chunk)
 
-    fu, fv = st.boundary.normal_factors()
-    length = st.piece_length
-    npiece = length.size
-    out = {k: np.empty(nt) for k in ("w", "imp", "inflow", "outflow", "adiv")}
-    edge = np.empty((nt, len(st.boundary.edge_names)))
-    density = np.empty((nt, npiece)) if profiles else None
-    curtain = None
-    for t0 in range(0, nt, chunk):
-        ts = slice(t0, min(nt, t0 + chunk))
-        c = _columns(fields, st, ds, ts, t0, profiles)
-        flux = (st.bu @ c.qu.T + st.bv @ c.qv.T).T  # outward flux per piece, (time, piece)
-        out["imp"][ts] = -flux.sum(axis=1)
-        out["inflow"][ts] = np.clip(-flux, 0, None).sum(axis=1)
-        out["outflow"][ts] = np.clip(flux, 0, None).sum(axis=1)
-        edge[ts] = -(st.edge_sum @ flux.T).T
-        out["adiv"][ts] = c.qu @ st.div_u + c.qv @ st.div_v
-        out["w"][ts] = c.w @ st.cover / st.area
-        if profiles:
-            density[ts] = -flux / length
-            if c.levels is not None:
-                if curtain is None:
-                    curtain = np.full((nt, nlev, npiece), np.nan)
-                lv = c.levels
-                nb = lv["qu"].shape[0]
-                flat = lambda a: a.reshape(-1, a.shape[-1]).T  # (cell, time*level)  # noqa: E731
-                qu_p = (st.interp @ flat(np.where(lv["air"], lv["qu"], 0.0))).T.reshape(nb, nlev, npiece)
-                qv_p = (st.interp @ flat(np.where(lv["air"], lv["qv"], 0.0))).T.reshape(nb, nlev, npiece)
-                airp = (st.interp @ flat(lv["air"].astype(float))).T.reshape(nb, nlev, npiece) > 0.5
-                val = -(fu * qu_p + fv * qv_p) / length / STANDARD_GRAVITY
-                curtain[ts] = np.where(airp, val, np.nan)
-        if progress is not None:
-            progress(min(nt, t0 + chunk), nt)
-
+    blocks = run_blocks(
+        partial(_block, fields, st, ds, profiles=profiles), nt, chunk, progress=progress
+    )
+    res = {k: np.concatenate([b[k] for b in blocks], axis=0) for k in blocks[0]}
+    out = {k: res[k] for k in ("w", "imp", "inflow", "outflow", "adiv")}
+    edge = res["edge"]
+    density = res.get("density")
+    curtain = res.get("curtain")
     tend = _tendency(out["w"], times)
     bconv = out["imp"] / st.area
     aconv = -out["adiv"]
