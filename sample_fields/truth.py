@@ -227,7 +227,8 @@ def divergence(lon, lat, t, qu_func=qu, qv_func=qv):
     lat = np.asarray(lat, dtype=float)
     h = 1e-8  # degrees
     dqu = np.imag(qu_func(lon + 1j * h, lat, t)) / np.deg2rad(h)
-    dqv = np.imag(qv_func(lon, lat + 1j * h, t) * np.cos(np.deg2rad(lat + 1j * h))) / np.deg2rad(h)
+    rad = np.pi / 180.0
+    dqv = np.imag(qv_func(lon, lat + 1j * h, t) * np.cos((lat + 1j * h) * rad)) / np.deg2rad(h)
     return (dqu + dqv) / (_A * np.cos(np.deg2rad(lat)))
 
 
