@@ -5,6 +5,13 @@
 closed-form fields and ``exact_budget`` of any polygon.
 """
 
-from .generate import SamplePaths, ensure_sample, write_sample
-
 __all__ = ["SamplePaths", "ensure_sample", "write_sample"]
+
+
+def __getattr__(name):
+    # imported on first use, so `python -m sample_fields.generate` runs the module only once
+    if name in __all__:
+        from . import generate
+
+        return getattr(generate, name)
+    raise AttributeError(f"module 'sample_fields' has no attribute {name!r}")

@@ -203,11 +203,21 @@ def write_sample(out_dir, overwrite: bool = False) -> SamplePaths:
         out.mkdir(parents=True, exist_ok=True)
         for ds, path in ((build_levels(), paths.levels), (build_column(), paths.column)):
             _atomic_write(path, lambda tmp, ds=ds: ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds)))
-        text = json.dumps(basin_geojson(), indent=1, ensure_ascii=False) + "\n"
+        text = _geojson_text(basin_geojson())
         _atomic_write(paths.basin, lambda tmp: tmp.write_text(text, encoding="utf-8"))
     except PermissionError as exc:
         raise RequestError(f"Cannot write the demo files into {out} ({exc.strerror}); choose a directory you can write to.") from None
     return paths
+
+
+def _geojson_text(obj: dict) -> str:
+    """Indented GeoJSON with one vertex per line."""
+    text = json.dumps(obj, indent=1, ensure_ascii=False)
+    # collapse the innermost [lon, lat] pairs onto single lines
+    import re
+
+    text = re.sub(r"\[\s+(-?[0-9.]+),\s+(-?[0-9.]+)\s+\]", r"[\1, \2]", text)
+    return text + "\n"
 
 
 def _cache_dir() -> Path:

@@ -345,8 +345,8 @@ def exact_budget(lon, lat, times=None) -> xr.Dataset:
 
     Parameters
     ----------
-    lon, lat : vertex arrays in degrees (edges straight in lon-lat, exterior counter-clockwise,
-        closed or not).
+    lon, lat : vertex arrays in degrees (edges straight in lon-lat, closed or not; a clockwise
+        ring is reversed, so import is always positive into the polygon).
     times : datetime64 values (UTC) or float seconds since ``START``; the 21 file times when
         omitted.
 
@@ -361,6 +361,9 @@ def exact_budget(lon, lat, times=None) -> xr.Dataset:
         times = file_times()
     t_in = np.asarray(times)
     t = np.atleast_1d(seconds_since_start(t_in)).astype(float)
+    lon, lat = _ring(lon, lat)
+    if polygon_area(lon, lat) < 0:  # a clockwise ring: walk it the other way round
+        lon, lat = lon[::-1], lat[::-1]
     area = polygon_area(lon, lat)
     al, ap, aw = area_nodes(lon, lat)
     w_mean = (precipitable_water(al[None, :], ap[None, :], t[:, None]) * aw).sum(axis=1) / aw.sum()

@@ -392,3 +392,15 @@ def test_ensure_sample_writes_once_when_not_bundled(tmp_path, monkeypatch):
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
     default = sample_fields.ensure_sample()
     assert default.basin == tmp_path / "xdg" / "fluxfence" / "sample" / "basin.geojson"
+
+
+def test_exact_budget_accepts_seconds_and_either_orientation(basin_budget):
+    # the same budget from float seconds and from a clockwise, closed copy of the ring
+    t = T.seconds_since_start(basin_budget.time.values)
+    lon = np.append(T.BASIN_LON[::-1], T.BASIN_LON[-1])
+    lat = np.append(T.BASIN_LAT[::-1], T.BASIN_LAT[-1])
+    other = T.exact_budget(lon, lat, t)
+    np.testing.assert_array_equal(other.time.values, basin_budget.time.values)
+    for name in basin_budget.data_vars:
+        np.testing.assert_allclose(other[name], basin_budget[name], rtol=1e-10, atol=1e-16)
+    assert other.attrs["region_area_m2"] == pytest.approx(basin_budget.attrs["region_area_m2"], rel=1e-12)
