@@ -105,14 +105,16 @@ _SI = {
     "w": "kg m-2",
 }
 
+# "ms-1" is deliberately not accepted: strictly it reads "per millisecond".  "mb" is the
+# meteorological millibar (not the millibarn of strict unit parsers).
 _WIND = {
     "m s-1": 1.0, "m/s": 1.0, "m s**-1": 1.0, "m.s-1": 1.0, "meters/second": 1.0,
     "metres/second": 1.0, "meter/second": 1.0, "metre/second": 1.0, "m s^-1": 1.0,
-    "m/sec": 1.0, "ms-1": 1.0, "m sec-1": 1.0, "meters second-1": 1.0, "m s**-1 ": 1.0,
+    "m/sec": 1.0, "m sec-1": 1.0, "meters second-1": 1.0,
 }
 _HUMIDITY = {
     "kg kg-1": 1.0, "kg/kg": 1.0, "kg kg**-1": 1.0, "1": 1.0, "kg kg^-1": 1.0,
-    "kg.kg-1": 1.0, "kg kg**-1 ": 1.0,
+    "kg.kg-1": 1.0,
     "g kg-1": 1e-3, "g/kg": 1e-3, "g kg**-1": 1e-3, "g kg^-1": 1e-3, "g.kg-1": 1e-3,
 }
 _PRESSURE = {
@@ -121,7 +123,7 @@ _PRESSURE = {
 }
 _FLUX = {
     "kg m-1 s-1": 1.0, "kg/m/s": 1.0, "kg m**-1 s**-1": 1.0, "kg m^-1 s^-1": 1.0,
-    "kg.m-1.s-1": 1.0, "kg/(m s)": 1.0, "kg m-1s-1": 1.0, "kg/m s": 1.0,
+    "kg.m-1.s-1": 1.0, "kg/(m s)": 1.0, "kg m-1s-1": 1.0,
 }
 # 1 kg m-2 of vapour is 1 mm of liquid water with a density of 1000 kg m-3 (common practice).
 _COLUMN = {
@@ -694,7 +696,11 @@ def _hybrid_vertical(ds, vdim, units, where):
         if "ap" in term_map:
             var = _coef(ds, term_map["ap"], where, "ap")
             ov = units.get("ap", units.get(term_map["ap"]))
-            fac = _pressure_factor(term_map["ap"], ov or var.attrs.get("units"), where, "ap")
+            raw_units = var.attrs.get("units")
+            if bounds and raw_units is None and terms.get("ap") in ds.variables:
+                # CF 7.1: a boundary variable takes its units from its parent variable
+                raw_units = ds[terms["ap"]].attrs.get("units")
+            fac = _pressure_factor(term_map["ap"], ov or raw_units, where, "ap")
             return np.asarray(var.values, dtype=float) * fac
         var = _coef(ds, term_map["a"], where, "a")
         if "p0" not in term_map:
