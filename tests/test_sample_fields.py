@@ -404,3 +404,28 @@ def test_exact_budget_accepts_seconds_and_either_orientation(basin_budget):
     for name in basin_budget.data_vars:
         np.testing.assert_allclose(other[name], basin_budget[name], rtol=1e-10, atol=1e-16)
     assert other.attrs["region_area_m2"] == pytest.approx(basin_budget.attrs["region_area_m2"], rel=1e-12)
+
+
+def test_edge_import_inflow_outflow_against_adaptive_quadrature():
+    # each edge of the basin integrated on its own by scipy.integrate.quad (adaptive
+    # Gauss-Kronrod) of the outward flux a (Qu dφ/ds − Qv cos φ dλ/ds) (CHECKS.md) over s in [0, 1]
+    t = 2.6 * 86400.0
+    b = T.exact_budget(T.BASIN_LON, T.BASIN_LAT, np.array([t]))
+    lon, lat = T.BASIN_LON, T.BASIN_LAT
+    total_in = total_out = 0.0
+    for i in range(lon.size):
+        j = (i + 1) % lon.size
+        dl, dp = np.deg2rad(lon[j] - lon[i]), np.deg2rad(lat[j] - lat[i])
+
+        def out(s):
+            x, y = lon[i] + s * (lon[j] - lon[i]), lat[i] + s * (lat[j] - lat[i])
+            fu, fv = T.vapour_flux(x, y, t)
+            return A * (fu * dp - fv * np.cos(np.deg2rad(y)) * dl)
+
+        net = quad(out, 0.0, 1.0, epsabs=0, epsrel=1e-12, limit=200)[0]
+        assert -net == pytest.approx(float(b.edge_import[0, i]), rel=1e-9, abs=1e-3)
+        total_in += quad(lambda s: max(-out(s), 0.0), 0.0, 1.0, epsabs=1e-3, epsrel=1e-12, limit=400)[0]
+        total_out += quad(lambda s: max(out(s), 0.0), 0.0, 1.0, epsabs=1e-3, epsrel=1e-12, limit=400)[0]
+    assert float(b.inflow[0]) == pytest.approx(total_in, rel=1e-6)
+    assert float(b.outflow[0]) == pytest.approx(total_out, rel=1e-6)
+    assert float(b.inflow[0] - b.outflow[0]) == pytest.approx(float(b.vapour_import[0]), rel=1e-9)
