@@ -103,7 +103,7 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
     qu = column_integral(q * u, dp, level_axis=1)
     qv = column_integral(q * v, dp, level_axis=1)
     w = column_integral(q, dp, level_axis=1)
-    levels = {"qu": q * u, "qv": q * v, "air": air} if profiles else None
+    levels = {"qu": q * u, "qv": q * v, "dp": dp} if profiles else None
     return Columns(qu, qv, w, ps=ps, levels=levels)
 
 
@@ -127,11 +127,17 @@ def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> di
             lv = c.levels
             nb, nlev, npiece = lv["qu"].shape[0], lv["qu"].shape[1], length.size
             flat = lambda a: a.reshape(-1, a.shape[-1]).T  # (cell, time*level)  # noqa: E731
-            qu_p = (st.interp @ flat(np.where(lv["air"], lv["qu"], 0.0))).T.reshape(nb, nlev, npiece)
-            qv_p = (st.interp @ flat(np.where(lv["air"], lv["qv"], 0.0))).T.reshape(nb, nlev, npiece)
-            airp = (st.interp @ flat(lv["air"].astype(float))).T.reshape(nb, nlev, npiece) > 0.5
-            val = -(fu * qu_p + fv * qv_p) / length / STANDARD_GRAVITY
-            res["curtain"] = np.where(airp, val, np.nan)
+            back = lambda a: a.T.reshape(nb, nlev, npiece)  # noqa: E731
+            dp = lv["dp"]
+            # layer contributions (1/g) x Δp interpolated to the pieces, so that the curtain
+            # times the layer thickness sums exactly to the import per unit length
+            lay_u = back(st.interp @ flat(np.where(dp > 0, lv["qu"] * dp, 0.0)))
+            lay_v = back(st.interp @ flat(np.where(dp > 0, lv["qv"] * dp, 0.0)))
+            dp_p = back(st.interp @ flat(dp))
+            layer = -(fu * lay_u + fv * lay_v) / length / STANDARD_GRAVITY  # kg m-1 s-1 per layer
+            with np.errstate(invalid="ignore", divide="ignore"):
+                res["curtain"] = np.where(dp_p > 0, layer / dp_p, np.nan)
+            res["curtain_dp"] = dp_p
     return res
 
 
@@ -182,15 +188,17 @@ def compute(
     edge = res["edge"]
     density = res.get("density")
     curtain = res.get("curtain")
+    curtain_dp = res.get("curtain_dp")
     tend = _tendency(out["w"], times)
     bconv = out["imp"] / st.area
     aconv = -out["adiv"]
     conv = bconv if method == "boundary" else aconv
     pme = conv - tend
-    return _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, curtain, ds)
+    return _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, (curtain, curtain_dp), ds)
 
 
-def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, curtain, ds):
+def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, curtains, ds):
+    curtain, curtain_dp = curtains
     T = ("time",)
 
     def var(data, units, long_name, dims=T, **extra):
@@ -230,6 +238,7 @@ def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pm
         coords["vertex_distance"] = ("vertex", cum[bnd.vertex_piece], {"units": "m", "long_name": "distance of each vertex along the boundary"})
         if curtain is not None:
             dv["normal_flux_density"] = var(curtain, "kg m-1 s-1 Pa-1", "import per unit boundary length per unit pressure", dims=("time", "level", "piece"))
+            dv["layer_thickness"] = var(curtain_dp, "Pa", "layer thickness above ground at each boundary piece", dims=("time", "level", "piece"))
             coords["level"] = ("level", ds["level"].values, dict(ds["level"].attrs))
     out = xr.Dataset(dv, coords=coords)
     out["time"].attrs.update({"long_name": "time", "standard_name": "time"})
