@@ -27,6 +27,7 @@ import io
 import json
 import math
 import os
+import warnings as warnings_module
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -80,6 +81,11 @@ def _fmt_lat(lat: float) -> str:
 
 def _fmt_point(lon: float, lat: float) -> str:
     return f"({_fmt_lon(lon)}, {_fmt_lat(lat)})"
+
+
+def _cap(text: str) -> str:
+    """Text to start a sentence with, or '' ('part 2 ' -> 'Part 2 ')."""
+    return text[:1].upper() + text[1:]
 
 
 def _num(x: float) -> str:
@@ -375,7 +381,7 @@ def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRin
         i = int(ambiguous[0])
         a, b = vno[i], vno[(i + 1) % n]
         raise RegionError(
-            f"{label.capitalize()}vertices {a} and {b}{where} are exactly 180° of longitude "
+            f"{_cap(label + 'vertices')} {a} and {b}{where} are exactly 180° of longitude "
             "apart, so the edge between them could go either way round; add a vertex between "
             "them."
         )
@@ -385,7 +391,7 @@ def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRin
             p = sphere._to_xyz([lon[i], lon[j]], [lat[i], lat[j]])
             if np.dot(p[0], p[1]) < -1 + 1e-12:
                 raise RegionError(
-                    f"{label.capitalize()}vertices {vno[i]} and {vno[j]}{where} are antipodal, "
+                    f"{_cap(label + 'vertices')} {vno[i]} and {vno[j]}{where} are antipodal, "
                     "so no single great circle joins them; add a vertex between them."
                 )
     cont = lon[0] + np.concatenate([[0.0], np.cumsum(step[:-1])])
@@ -1053,6 +1059,15 @@ def _shapefile_features(path_or_files, display: str | None = None):
                         files[ext] = cand.read_bytes()
                         break
     where = f" in '{shown}'"
+    with warnings_module.catch_warnings(record=True) as caught:
+        warnings_module.simplefilter("always")
+        feats = _read_shapes(shapefile, files, where, shown, warnings)
+    for w in caught:
+        warnings.append(f"Reading '{shown}': {w.message}")
+    return feats, where, stem, warnings
+
+
+def _read_shapes(shapefile, files, where, shown, warnings):
     try:
         reader = shapefile.Reader(
             shp=io.BytesIO(files["shp"]),
@@ -1097,7 +1112,7 @@ def _shapefile_features(path_or_files, display: str | None = None):
         feats.append({"type": "Feature", "properties": rec, "geometry": geom})
     if not feats:
         raise RegionError(f"The shapefile{where} holds no shapes; add a polygon.")
-    return feats, where, stem, warnings
+    return feats
 
 
 def _files_from_zip(data: bytes, shown: str) -> dict:
