@@ -216,8 +216,7 @@ class Fields:
         if t.size and not np.isnat(t[0]):
             step = ""
             if t.size > 1:
-                dt = pd.Timedelta(np.median(np.diff(t)))
-                step = f", step {dt}"
+                step = f", step {_fmt_step(pd.Timedelta(np.median(np.diff(t))))}"
             lines.append(
                 f"time: {t.size} steps, {_iso(t[0])} to {_iso(t[-1])}{step}"
             )
@@ -242,6 +241,15 @@ def _fmt(x) -> str:
 
 def _iso(t) -> str:
     return pd.Timestamp(t).isoformat()
+
+
+def _fmt_step(dt: pd.Timedelta) -> str:
+    secs = dt.total_seconds()
+    for size, unit in ((86400, "day"), (3600, "h"), (60, "min")):
+        if secs >= size and secs % size == 0:
+            n = int(secs // size)
+            return f"{n} {unit}{'s' if unit == 'day' and n > 1 else ''}"
+    return f"{secs:g} s"
 
 
 def _spacing(x: np.ndarray) -> float:
@@ -478,7 +486,7 @@ def _decode_times(index, where: str, notes: list[str]) -> pd.DatetimeIndex:
         try:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
-                out = index.to_datetimeindex(unsafe=True)
+                out = index.to_datetimeindex(unsafe=True, time_unit="us")
         except Exception as exc:  # noqa: BLE001
             raise FieldsError(
                 f"The times in {where} use the '{cal}' calendar and cannot be converted to "
@@ -490,15 +498,25 @@ def _decode_times(index, where: str, notes: list[str]) -> pd.DatetimeIndex:
                 f"times use the '{cal}' calendar and were converted to standard dates; "
                 "intervals across a missing or extra day are off by that day"
             )
-        return pd.DatetimeIndex(out).as_unit("ns")
+        return _as_ns(pd.DatetimeIndex(out), where)
     if isinstance(index, pd.DatetimeIndex):
         if index.tz is not None:
             index = index.tz_convert("UTC").tz_localize(None)
-        return index.as_unit("ns")
+        return _as_ns(index, where)
     raise FieldsError(
         f"The time coordinate in {where} could not be read as dates; give it CF units such "
         "as 'hours since 2000-01-01 00:00' and a calendar."
     )
+
+
+def _as_ns(index: pd.DatetimeIndex, where: str) -> pd.DatetimeIndex:
+    try:
+        return index.as_unit("ns")
+    except (OverflowError, ValueError, pd.errors.OutOfBoundsDatetime):
+        raise FieldsError(
+            f"The times in {where} ({index[0]} to {index[-1]}) lie outside the years 1678-2261 "
+            "that datetime64[ns] can hold; shift the time axis into that range."
+        ) from None
 
 
 def _orient_lon(lon: np.ndarray, where: str) -> tuple[np.ndarray, np.ndarray]:
@@ -834,7 +852,7 @@ def open_fields(
     raw, files = _open(paths, chunks)
     where = _where(files)
     for role, name in var_map.items():
-        if name not in raw.data_vars:
+        if name not in raw.variables or name in raw.dims:
             raise FieldsError(
                 f"The variable '{name}' given for {role} ({ROLE_LONG_NAMES[role]}) is not in "
                 f"{where}, which holds: {_contents(raw)}; correct {_var_hint(role)}."
@@ -888,7 +906,7 @@ def open_fields(
             coord = raw[vdim]
             if coord.attrs.get("standard_name") == _HYBRID or "formula_terms" in coord.attrs:
                 psn = _parse_terms(coord.attrs.get("formula_terms", "")).get("ps")
-                if psn and psn in raw.data_vars:
+                if psn and psn in raw.variables and psn not in raw.dims:
                     found["ps"] = psn
                     if "ps" in missing:
                         missing.remove("ps")
@@ -901,7 +919,7 @@ def open_fields(
 
     notes: list[str] = []
     for role, name in found.items():
-        _check_dims(role, name, raw, hdims, lat_dim, lon_dim, where)
+        _check_dims(role, name, raw, hdims, lat_dim, lon_dim, where, time_dim)
 
     # vertical coordinate
     vertical = None
@@ -1116,8 +1134,14 @@ def open_fields(
     )
 
 
-def _check_dims(role, name, raw, hdims, lat_dim, lon_dim, where):
+def _check_dims(role, name, raw, hdims, lat_dim, lon_dim, where, time_dim=None):
     var = raw[name]
+    if time_dim is not None and time_dim not in var.dims:
+        raise FieldsError(
+            f"Variable '{name}' chosen for {role} ({ROLE_LONG_NAMES[role]}) in {where} has no "
+            f"'{time_dim}' dimension while the file has one; give it the time dimension or name "
+            f"another variable with {_var_hint(role)}."
+        )
     if lat_dim not in var.dims or lon_dim not in var.dims:
         raise FieldsError(
             f"Variable '{name}' chosen for {role} ({ROLE_LONG_NAMES[role]}) in {where} is not "
@@ -1177,7 +1201,14 @@ def _sample(da: xr.DataArray) -> np.ndarray:
 def _plausible(ds: xr.Dataset, found: dict, where: str) -> None:
     if "q" in ds:
         vals = _sample(ds["q"])
-        if np.isfinite(vals).any() and np.nanmax(vals) > _Q_MAX:
+        qmax = np.nanmax(vals) if np.isfinite(vals).any() else 0.0
+        if qmax > 1000 * _Q_MAX:
+            raise FieldsError(
+                f"Specific humidity '{found['q']}' in {where} holds values up to {qmax:.3g}, far "
+                "above any humidity even in g/kg, which looks like missing values that are not "
+                "marked; give the variable a _FillValue (or missing_value) attribute."
+            )
+        if qmax > _Q_MAX:
             src_units = ds["q"].attrs.get("source_units")
             raise FieldsError(
                 f"Specific humidity '{found['q']}' in {where} reaches "

@@ -654,7 +654,7 @@ def test_zarr_store(tmp_path):
     if importlib.util.find_spec("zarr") is None:  # zarr is a declared dependency
         raise AssertionError("zarr is listed in pyproject.toml and must be installed")
     store = tmp_path / "fields.zarr"
-    make_levels(lat=LAT[::-1]).to_zarr(store)
+    make_levels(lat=LAT[::-1]).to_zarr(store, consolidated=False)
     f = open_fields(str(store))
     import dask.array as da
 
@@ -678,6 +678,7 @@ def test_describe_summarises(tmp_path):
     text = f.describe()
     assert "u=ua" in text and "5 pressure levels, 250 to 1000 hPa" in text
     assert "global, periodic" in text and "2021-03-01T00:00:00" in text
+    assert "4 steps" in text and "step 6 h" in text
 
 
 # ---------------------------------------------------------------------------------------
@@ -776,3 +777,21 @@ def test_error_curvilinear_grid(tmp_path):
         lat2d=(("y", "x"), np.broadcast_to(LAT[:, None], (LAT.size, LON.size)), {"standard_name": "latitude", "units": "degrees_north"}),
     )
     raises(["lat2d", "curvilinear", "regrid"], write(ds, tmp_path))
+
+
+def test_error_unmarked_fill_values_in_q(tmp_path):
+    ds = make_levels()
+    ds["hus"][:, -1] = 9.99e20  # below-ground fill value without a _FillValue attribute
+    raises(["'hus'", "in.nc", "_FillValue"], write(ds, tmp_path))
+
+
+def test_error_role_without_time_dimension(tmp_path):
+    ds = make_levels()
+    ds["ps"] = ds["ps"].isel(time=0, drop=True)
+    raises(["'ps'", "surface air pressure", "no 'time' dimension", "--var ps=NAME"], write(ds, tmp_path))
+
+
+def test_error_times_outside_datetime64_range(tmp_path):
+    ds = make_column(ntime=2)
+    ds = ds.assign_coords(time=xr.date_range("3000-01-01", periods=2, freq="D", calendar="standard", use_cftime=True))
+    raises(["in.nc", "3000-01-01", "1678-2261"], write(ds, tmp_path))
