@@ -7,6 +7,7 @@ traceback means a bug.
 from __future__ import annotations
 
 import argparse
+import os
 import shutil
 import sys
 import time
@@ -187,6 +188,15 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("fluxfence: interrupted; no output was written.", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug, not a user error: say so in one line
+        if os.environ.get("FLUXFENCE_DEBUG"):
+            raise
+        print(
+            f"fluxfence: internal error ({type(exc).__name__}: {exc}); please report it with the command you ran "
+            "(set FLUXFENCE_DEBUG=1 to see the traceback).",
+            file=sys.stderr,
+        )
+        return 70
 
 
 if __name__ == "__main__":
