@@ -312,14 +312,15 @@ class _RawRing:
     lat: np.ndarray
     vertex_no: np.ndarray  # 1-based vertex numbers in the user's input
     label: str  # "", "part 2 ", "part 1 hole 1 " for messages
-    where: str  # " of the region in 'file.geojson'" etc. for messages
+    where: str  # " in 'file.geojson'" etc. for messages
+    removed: int = 0  # repeated consecutive vertices dropped
 
 
 def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRing:
     """Check one input ring and bring it into the continuous frame (orientation untouched)."""
     ring_desc = f"{label.strip()} " if label.strip() else ""
     try:
-        arr = np.asarray(coords, dtype=float)
+        arr = np.asarray([list(c)[:2] for c in coords], dtype=float)
     except (TypeError, ValueError):
         raise RegionError(
             f"The {ring_desc}ring{where} has coordinates that are not numbers; give each "
@@ -331,7 +332,10 @@ def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRin
             "each vertex as [longitude, latitude] in degrees."
         )
     lon_in, lat_in = arr[:, 0], arr[:, 1]
-    for i, (x, y) in enumerate(zip(lon_in, lat_in)):
+    bad = ~(np.isfinite(lon_in) & np.isfinite(lat_in))
+    bad |= ~((lat_in >= -90.0) & (lat_in <= 90.0) & (np.abs(lon_in) <= LON_LIMIT))
+    for i in np.flatnonzero(bad)[:1]:
+        x, y = lon_in[i], lat_in[i]
         v = f"{label}vertex {i + 1}"
         if not (np.isfinite(x) and np.isfinite(y)):
             raise RegionError(
@@ -363,6 +367,7 @@ def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRin
     step = np.where(full, raw, step)
     # remove repeated consecutive vertices (same point, also across a 360 shift)
     keep = ~((step == 0.0) & (nxt_lat == lat))
+    removed = int((~keep).sum()) if lon.size > 1 else 0
     if not keep.all():
         lon, lat, vno = lon[keep], lat[keep], vno[keep]
         nxt_lon, nxt_lat = np.roll(lon, -1), np.roll(lat, -1)
@@ -422,7 +427,7 @@ def _prepare_ring(coords, label: str, where: str, great_circle: bool) -> _RawRin
             f"The {ring_desc}ring{where} spans {extent:.1f}° of longitude, more than once round "
             "the globe; check the vertex order or split the polygon."
         )
-    return _RawRing(cont, lat.copy(), vno, label, where)
+    return _RawRing(cont, lat.copy(), vno, label, where, removed)
 
 
 def _shift_to_frame(ring: _RawRing, centre: float) -> _RawRing:
@@ -521,7 +526,11 @@ def _find_crossing(rings: list[_RawRing]) -> str | None:
                 continue
         pt = inter.representative_point() if not inter.is_empty else segs[a].centroid
         near = _fmt_point(pt.x, pt.y)
-        verb = "overlap" if inter.geom_type != "Point" else "cross"
+        if inter.geom_type != "Point":
+            verb = "overlap"
+        else:
+            ends = [shapely.Point(c) for g in (segs[a], segs[b]) for c in g.coords]
+            verb = "touch" if any(pt.equals(e) for e in ends) else "cross"
         ring_a, ring_b = rings[ra], rings[rb]
         where = rings[0].where
         if ra == rb:
@@ -582,7 +591,14 @@ def _build_region(
             h_names = [f"part {p_i + 1} hole {h_i + 1} edge {k + 1}" for k in range(h.lon.size)]
             holes.append(_orient(h, False, h_names))
         parts.append(Part(exterior, holes))
-    return Region(parts, name=name, great_circle=great_circle, kind="polygon")
+    region = Region(parts, name=name, great_circle=great_circle, kind="polygon")
+    removed = sum(r.removed for rings in raw_parts for r in rings)
+    if removed:
+        region.warnings.append(
+            f"{removed} repeated {'vertex' if removed == 1 else 'vertices'}{where} "
+            f"{'was' if removed == 1 else 'were'} removed."
+        )
+    return region
 
 
 def _check_parts_overlap(raw_parts: list[list[_RawRing]], where: str) -> None:
@@ -590,21 +606,30 @@ def _check_parts_overlap(raw_parts: list[list[_RawRing]], where: str) -> None:
         return
     polys = [Polygon(np.c_[r[0].lon, r[0].lat], [np.c_[h.lon, h.lat] for h in r[1:]])
              for r in raw_parts]
-    for i in range(len(polys)):
-        for j in range(i + 1, len(polys)):
-            for s in (-360.0, 0.0, 360.0):
-                other = shapely.affinity.translate(polys[j], xoff=s)
-                if polys[i].intersects(other):
-                    ov = polys[i].intersection(other).area
-                    if ov > 1e-9 * min(polys[i].area, polys[j].area):
-                        raise RegionError(
-                            f"Parts {i + 1} and {j + 1} of the region{where} overlap; merge "
-                            "them into one polygon so that no area counts twice."
-                        )
+    tree = shapely.STRtree(polys)
+    for i, poly in enumerate(polys):
+        for s in (-360.0, 0.0, 360.0):
+            other = shapely.affinity.translate(poly, xoff=s)
+            for j in tree.query(other, predicate="intersects"):
+                j = int(j)
+                if j <= i:
+                    continue
+                ov = other.intersection(polys[j]).area
+                if ov > 1e-9 * min(poly.area, polys[j].area):
+                    raise RegionError(
+                        f"Parts {i + 1} and {j + 1} of the region{where} overlap; merge "
+                        "them into one polygon so that no area counts twice."
+                    )
 
 
 def _merge_seam_parts(raw_parts, where, great_circle):
     """Join parts that were cut at the antimeridian (RFC 7946 style) back into one."""
+    on_seam = [i for i, r in enumerate(raw_parts)
+               if np.any(np.isclose(np.abs((r[0].lon + 180.0) % 360.0 - 180.0), 180.0, atol=1e-9))]
+    if len(on_seam) < 2:
+        return raw_parts
+    rest = [raw_parts[i] for i in range(len(raw_parts)) if i not in on_seam]
+    raw_parts = [raw_parts[i] for i in on_seam]
     polys = [Polygon(np.c_[r[0].lon, r[0].lat], [np.c_[h.lon, h.lat] for h in r[1:]])
              for r in raw_parts]
     groups = [[i] for i in range(len(polys))]
@@ -641,12 +666,12 @@ def _merge_seam_parts(raw_parts, where, great_circle):
                     break
             if merged_any:
                 break
-    if len(geoms) == len(polys):
-        return raw_parts
-    out = []
+    rest_idx = [i for i in range(len(rest) + len(on_seam)) if i not in on_seam]
+    keyed = list(zip(rest_idx, rest))
     for g, grp in zip(geoms, groups):
+        key = on_seam[min(grp)]
         if len(grp) == 1:
-            out.append(raw_parts[grp[0]])
+            keyed.append((key, raw_parts[grp[0]]))
             continue
         g = orient(g, 1.0)
         rings_xy = [np.asarray(g.exterior.coords)] + [np.asarray(h.coords) for h in g.interiors]
@@ -658,8 +683,9 @@ def _merge_seam_parts(raw_parts, where, great_circle):
         centre = float(np.mean(new[0].lon))
         for h in new[1:]:
             _shift_to_frame(h, centre)
-        out.append(new)
-    return out
+        keyed.append((key, new))
+    keyed.sort(key=lambda kv: kv[0])
+    return [rings for _, rings in keyed]
 
 
 def _lines_of(geom):
@@ -764,6 +790,8 @@ def region_from_bbox(west, south, east, north, name: str | None = None) -> Regio
         w0 -= 360.0
     e0 = w0 + span
     ring = Ring(np.array([w0, e0, e0, w0]), np.array([s, s, n, n]), ["S", "E", "N", "W"])
+    if name is None:
+        name = f"box {_num(w)},{_num(s)},{_num(e)},{_num(n)}"
     region = Region([Part(ring, [])], name=name, great_circle=False, kind="bbox")
     if span == 360.0:
         region.warnings.append(
@@ -1001,6 +1029,10 @@ def region_from_geojson(obj_or_path, feature=None, name: str | None = None,
     MultiPolygon parts cut at the antimeridian are joined back into one part.
     """
     obj, where, stem = _read_json(obj_or_path)
+    return _region_from_geojson_obj(obj, where, stem, feature, name, great_circle)
+
+
+def _region_from_geojson_obj(obj, where, stem, feature, name, great_circle) -> Region:
     feats = _features_of(obj, where)
     idx, feat = _select_feature(feats, feature, where)
     if not isinstance(feat, dict):
@@ -1009,7 +1041,7 @@ def region_from_geojson(obj_or_path, feature=None, name: str | None = None,
     fname = _feature_name(props)
     region_name = name or fname or stem or "region"
     if len(feats) > 1:
-        where = f" (feature {fname or idx}){where}" if where else f" (feature {fname or idx})"
+        where = f" (feature {fname or idx}){where}"
     if great_circle is None:
         great_circle = bool(props.get("great_circle", False))
     if not great_circle:
@@ -1208,21 +1240,8 @@ def region_from_upload(filename: str, data: bytes, feature=None, name: str | Non
             raise RegionError(
                 f"The uploaded file '{shown}' is not UTF-8 text; upload a GeoJSON file."
             ) from None
-        where = f" in '{shown}'"
-        feats = _features_of(obj, where)
-        idx, feat = _select_feature(feats, feature, where)
-        fname = _feature_name(feat.get("properties"))
-        if len(feats) > 1:
-            where = f" (feature {fname or idx}){where}"
-        props = feat.get("properties") or {}
-        gc = great_circle or bool(props.get("great_circle", False))
-        region_name = name or fname or Path(filename).stem
-        if not gc:
-            bb = _maybe_bbox_region(feat, region_name)
-            if bb is not None:
-                return bb
-        polys, multi = _geometry_rings(feat.get("geometry"), where)
-        return _region_from_polys(polys, multi, region_name, gc, where)
+        return _region_from_geojson_obj(obj, f" in '{shown}'", Path(filename).stem, feature,
+                                        name, great_circle or None)
     if ext == ".zip":
         files = _files_from_zip(bytes(data), shown)
     elif ext == ".shp":
