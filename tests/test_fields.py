@@ -795,3 +795,46 @@ def test_error_times_outside_datetime64_range(tmp_path):
     ds = make_column(ntime=2)
     ds = ds.assign_coords(time=xr.date_range("3000-01-01", periods=2, freq="D", calendar="standard", use_cftime=True))
     raises(["in.nc", "3000-01-01", "1678-2261"], write(ds, tmp_path))
+
+
+def test_open_reads_only_a_sample_of_the_first_time_chunk(tmp_path):
+    # Record every dask task run while opening: only blocks of the first time chunk (the
+    # plausibility sample of q and ps) may be read from the file.
+    from dask.callbacks import Callback
+
+    path = write(make_levels(ntime=8, lat=LAT[::-1], q_units="g/kg", q_scale=1000.0), tmp_path)
+    read = []
+
+    class Record(Callback):
+        def _pretask(self, key, dask, state):
+            if isinstance(key, tuple) and len(key) >= 4:  # (name, time block, ...)
+                read.append(key)
+
+    with Record():
+        f = open_fields(path, chunks={"time": 1})
+    assert f.ds["q"].data.numblocks[0] == 8
+    assert read, "the plausibility sample reads something"
+    assert {k[1] for k in read} == {0}  # time block 0 only, of 8
+    assert not any("-u-" in str(k[0]) or "-v-" in str(k[0]) for k in read)  # winds untouched
+
+
+def test_error_hybrid_repeated_level(tmp_path):
+    ds, _ = make_hybrid(bounds=False)
+    ds["a"][1] = ds["a"].values[0]
+    ds["b"][1] = ds["b"].values[0]
+    raises(["'lev'", "repeat", "in.nc"], write(ds, tmp_path))
+
+
+def test_error_hybrid_bounds_with_gap(tmp_path):
+    ds, _ = make_hybrid()
+    ds["b_bnds"][2, 0] = ds["b_bnds"].values[2, 0] + 0.05
+    raises(["'lev'", "gaps or overlaps", "in.nc"], write(ds, tmp_path))
+
+
+def test_error_hybrid_p0_without_units(tmp_path):
+    ds, _ = make_hybrid()
+    del ds["p0"].attrs["units"]
+    path = write(ds, tmp_path)
+    raises(["'p0'", "no units attribute", "--units p0=Pa"], path)
+    f = open_fields(path, units={"p0": "Pa"})
+    np.testing.assert_allclose(f.vertical.a_interface_pa, A_INT * P0, rtol=1e-12)
