@@ -96,7 +96,7 @@ def _num(x: float) -> str:
 # data model
 
 
-@dataclass
+@dataclass(eq=False)
 class Ring:
     """One closed ring, stored without the closing vertex (see the module docstring)."""
 
@@ -132,7 +132,7 @@ class Ring:
         return Ring(self.lon + dlon, self.lat.copy(), list(self.edge_names))
 
 
-@dataclass
+@dataclass(eq=False)
 class Part:
     """One polygon: a counter-clockwise exterior ring and clockwise holes."""
 
@@ -147,7 +147,7 @@ class Part:
         return Polygon(self.exterior.coords(), [h.coords() for h in self.holes])
 
 
-@dataclass
+@dataclass(eq=False)
 class Region:
     """A validated region (see the module docstring for the conventions of its rings)."""
 
@@ -219,10 +219,12 @@ class Region:
             r = self.parts[0].exterior
             west, east = float(r.lon[0]), float(r.lon[1])
             span = east - west
-            west = _wrap180(west)
-            east = west + span if span >= 360.0 else _wrap180(east)
-            if span < 360.0 and east == -180.0:
-                east = 180.0
+            if span >= 360.0:
+                west, east = -180.0, 180.0
+            else:
+                west, east = _wrap180(west), _wrap180(east)
+                if east == -180.0:
+                    east = 180.0
             feature["bbox"] = [west, float(r.lat[0]), east, float(r.lat[2])]
         return feature
 
@@ -250,6 +252,10 @@ def _part_to_rfc7946(part: Part, great_circle: bool, kind: str) -> list:
     """Coordinates of one part as one or more RFC 7946 polygons (cut at the antimeridian)."""
     lon_min = min(r.lon.min() for r in part.rings)
     lon_max = max(r.lon.max() for r in part.rings)
+    if kind == "bbox" and lon_max - lon_min == 360.0:
+        # a box round all longitudes is the same box in any frame: write it as −180 … 180
+        ext = part.exterior
+        return [[_ring_coords_closed(ext.lon - lon_min - 180.0, ext.lat)]]
     if lon_min >= -180.0 and lon_max <= 180.0:
         return [[_ring_coords_closed(r.lon, r.lat) for r in part.rings]]
     rings = part.rings
@@ -268,9 +274,22 @@ def _part_to_rfc7946(part: Part, great_circle: bool, kind: str) -> list:
                 continue
             g = shapely.affinity.translate(g, xoff=-k * 360.0)
             g = orient(g, 1.0)
-            coords = [[[float(x), float(y)] for x, y in g.exterior.coords]]
-            coords += [[[float(x), float(y)] for x, y in h.coords] for h in g.interiors]
+            coords = [_split_long_steps(g.exterior.coords)]
+            coords += [_split_long_steps(h.coords) for h in g.interiors]
             out.append(coords)
+    return out
+
+
+def _split_long_steps(coords) -> list[list[float]]:
+    """Closed ring coordinates with edges of 180° or more of longitude halved (or further),
+    so that a reader joining vertices the short way round gets the same edges."""
+    xy = np.asarray(coords, dtype=float)
+    out = [[float(xy[0, 0]), float(xy[0, 1])]]
+    for (x0, y0), (x1, y1) in zip(xy[:-1], xy[1:]):
+        m = int(abs(x1 - x0) // 120.0) + 1 if abs(x1 - x0) >= 180.0 else 1
+        for t in np.arange(1, m + 1) / m:
+            out.append([float(x0 + t * (x1 - x0)), float(y0 + t * (y1 - y0))])
+        out[-1] = [float(x1), float(y1)]
     return out
 
 
@@ -720,7 +739,7 @@ def _drop_seam_vertices(xy: np.ndarray, great_circle: bool) -> np.ndarray:
                 scale = (np.abs(d1).sum() + np.abs(d2).sum()) ** 2
                 on = abs(cross) <= 1e-12 * max(scale, 1e-300)
                 between = float(np.dot(d1, d2)) > 0
-            if on and between:
+            if on and between and abs(q[0] - p[0]) < 180.0:
                 xy = np.delete(xy, i, axis=0)
                 changed = True
                 break

@@ -635,3 +635,87 @@ def test_region_model_helpers():
     geom = r.shapely()
     assert geom.is_valid and len(geom.interiors) == 1
     assert r.warnings == []
+
+
+def test_round_trip_band_and_pole_edge_polygon_in_0_360_frame():
+    band = region_from_bbox(0, -10, 360, 10)
+    f = band.to_geojson()
+    assert f["geometry"]["type"] == "Polygon" and f["bbox"] == [-180.0, -10.0, 180.0, 10.0]
+    check_rfc7946(f)
+    assert region_from_geojson(f).area_m2() == pytest.approx(box_area(0, -10, 360, 10), rel=1e-12)
+    # a polygon closed along the pole, given from 0 to 360: cut at 180, long pole edges split
+    cap = region_from_vertices([0, 120, 240, 360, 360, 0], [70, 72, 71, 70, 90, 90])
+    f = cap.to_geojson()
+    for poly in check_rfc7946(f):
+        steps = np.abs(np.diff(np.asarray(poly[0])[:, 0]))
+        assert np.all(steps < 180)
+    back = region_from_geojson(f)
+    assert len(back.parts) == 1
+    assert back.area_m2() == pytest.approx(cap.area_m2(), rel=1e-12)
+
+
+def test_round_trip_multipart_with_one_part_across_antimeridian():
+    mp = {"type": "MultiPolygon", "coordinates": [
+        [[[0, 0], [10, 0], [10, 10], [0, 0]]],
+        [[[175, 0], [185, 0], [185, 10], [175, 0]]]]}
+    r = region_from_geojson(mp)
+    f = r.to_geojson()
+    assert len(f["geometry"]["coordinates"]) == 3
+    back = region_from_geojson(f)
+    assert len(back.parts) == 2
+    assert same_cyclic(back.parts[0].exterior, [0, 10, 10], [0, 0, 10])
+    assert same_cyclic(back.parts[1].exterior, [175, 185, 185], [0, 0, 10])
+    assert back.area_m2() == pytest.approx(r.area_m2(), rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    "geometry, needles",
+    [
+        ({"type": "Polygon", "coordinates": [[[0, 0], ["a", 1], [1, 1], [0, 0]]]},
+         ["ring", "not numbers"]),
+        ({"type": "Polygon", "coordinates": [[0, 0, 1]]}, ["not numbers"]),
+        ({"type": "Polygon", "coordinates": []}, ["Polygon", "no coordinates"]),
+        ({"type": "MultiPolygon", "coordinates": [[[[0, 0], [1, 0], [1, 1]]], [[[5, 0], [185, 0], [6, 1]]]]},
+         ["Part 2 vertices 1 and 2", "180°"]),
+        ({"type": "Polygon", "coordinates": [[[0, 0], [10, 0], [10, 10], [0, 10]],
+                                             [[2, 2], [4, 2], [4, 4], [2, 4]],
+                                             [[3, 3], [3.5, 3], [3.5, 3.5]]]},
+         ["not a valid polygon", "nested", "(3.0°E, 3.0°N)"]),
+        ({"type": "Polygon", "coordinates": [[[0, 0], [10, 0], [10, 10], [5, 0], [0, 10]]]},
+         # vertex 4 (5, 0) lies on edge 1→2, so edges 3→4 and 4→5 both touch it there
+         ["Edges 1→2 and ", "touch near (5.0°E, 0.0°N)"]),
+        ({"type": "Polygon", "coordinates": [[[0, 0], [10, 0], [10, 95]]]},
+         ["latitude 95 of vertex 3"]),
+    ],
+)
+def test_geometry_errors(geometry, needles):
+    msg = raises(region_from_geojson, {"type": "Feature", "properties": {}, "geometry": geometry})
+    for n in needles:
+        assert n in msg, msg
+
+
+def test_feature_without_geometry_and_zip_with_two_shapefiles(tmp_path):
+    fc = {"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {"name": "Empty"}, "geometry": None}]}
+    assert "has no geometry" in raises(region_from_geojson, fc)
+    write_shapefile(tmp_path, "one")
+    write_shapefile(tmp_path, "two")
+    zpath = tmp_path / "both.zip"
+    with zipfile.ZipFile(zpath, "w") as z:
+        for stem in ("one", "two"):
+            for ext in ("shp", "shx", "dbf"):
+                z.write(tmp_path / f"{stem}.{ext}", f"{stem}.{ext}")
+    msg = raises(region_from_shapefile, zpath)
+    assert "'both.zip' holds 2 shapefiles" in msg and "one.shp" in msg
+    assert "is a folder" in raises(region_from_geojson, tmp_path)
+
+
+def test_unreadable_prj_named(tmp_path):
+    shp = write_shapefile(tmp_path, prj="this is not a coordinate system")
+    msg = raises(region_from_shapefile, shp, feature=0)
+    assert "The .prj file of 'basins.shp'" in msg
+
+
+def test_repeated_vertices_reported_as_warning():
+    r = region_from_vertices([0, 10, 10, 10, 0], [0, 0, 0, 10, 10])
+    assert r.warnings == ["1 repeated vertex was removed."]
