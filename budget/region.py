@@ -520,35 +520,39 @@ def _all_collinear(ring: _RawRing) -> bool:
 
 
 def _find_crossing(rings: list[_RawRing]) -> str | None:
-    """Name the first pair of edges that cross or overlap, or None."""
-    segs, owner, index = [], [], []
-    for r_i, r in enumerate(rings):
-        n = r.lon.size
-        for i in range(n):
-            j = (i + 1) % n
-            segs.append(LineString([(r.lon[i], r.lat[i]), (r.lon[j], r.lat[j])]))
-            owner.append(r_i)
-            index.append(i)
-    segs_arr = np.array(segs, dtype=object)
-    tree = shapely.STRtree(segs_arr)
-    pairs = tree.query(segs_arr, predicate="intersects")
-    a_idx, b_idx = pairs
+    """Name the first pair of edges that cross, touch or overlap, or None."""
+    x0 = np.concatenate([r.lon for r in rings])
+    y0 = np.concatenate([r.lat for r in rings])
+    x1 = np.concatenate([np.roll(r.lon, -1) for r in rings])
+    y1 = np.concatenate([np.roll(r.lat, -1) for r in rings])
+    owner = np.concatenate([np.full(r.lon.size, k) for k, r in enumerate(rings)])
+    index = np.concatenate([np.arange(r.lon.size) for r in rings])
+    sizes = np.array([r.lon.size for r in rings])
+    segs = shapely.linestrings(np.stack([np.c_[x0, y0], np.c_[x1, y1]], axis=1))
+    tree = shapely.STRtree(segs)
+    a_idx, b_idx = tree.query(segs, predicate="intersects")
     sel = a_idx < b_idx
-    for a, b in zip(a_idx[sel], b_idx[sel]):
-        ra, rb = owner[a], owner[b]
-        ia, ib = index[a], index[b]
+    a_idx, b_idx = a_idx[sel], b_idx[sel]
+    # neighbouring edges always share their vertex; they only matter when they fold back
+    n_of = sizes[owner[a_idx]]
+    d = (index[b_idx] - index[a_idx]) % n_of
+    adjacent = (owner[a_idx] == owner[b_idx]) & ((d == 1) | (d == n_of - 1))
+    ux, uy = x1 - x0, y1 - y0
+    cross = ux[a_idx] * uy[b_idx] - uy[a_idx] * ux[b_idx]
+    dot = ux[a_idx] * ux[b_idx] + uy[a_idx] * uy[b_idx]
+    scale = np.hypot(ux[a_idx], uy[a_idx]) * np.hypot(ux[b_idx], uy[b_idx])
+    folds = (np.abs(cross) <= 1e-12 * scale) & (dot < 0)
+    cand = ~adjacent | folds
+    for a, b in sorted(zip(a_idx[cand].tolist(), b_idx[cand].tolist())):
+        ra, rb = int(owner[a]), int(owner[b])
+        ia, ib = int(index[a]), int(index[b])
         inter = segs[a].intersection(segs[b])
-        if ra == rb:
-            n = rings[ra].lon.size
-            adjacent = (ib - ia) % n in (1, n - 1)
-            if adjacent and inter.geom_type == "Point":
-                continue
         pt = inter.representative_point() if not inter.is_empty else segs[a].centroid
         near = _fmt_point(pt.x, pt.y)
         if inter.geom_type != "Point":
             verb = "overlap"
         else:
-            ends = [shapely.Point(c) for g in (segs[a], segs[b]) for c in g.coords]
+            ends = [shapely.Point(c) for c in (*segs[a].coords, *segs[b].coords)]
             verb = "touch" if any(pt.equals(e) for e in ends) else "cross"
         ring_a, ring_b = rings[ra], rings[rb]
         where = rings[0].where

@@ -719,3 +719,9 @@ def test_unreadable_prj_named(tmp_path):
 def test_repeated_vertices_reported_as_warning():
     r = region_from_vertices([0, 10, 10, 10, 0], [0, 0, 0, 10, 10])
     assert r.warnings == ["1 repeated vertex was removed."]
+
+
+def test_edge_folding_back_is_an_overlap():
+    # (10,0)→(10,10)→(10,5) walks back along the same meridian
+    msg = raises(region_from_vertices, [0, 10, 10, 10, 10, 0], [0, 0, 10, 5, 12, 10])
+    assert "Edges 2→3 and 3→4 overlap" in msg
