@@ -31,13 +31,13 @@ import warnings as warnings_module
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 import shapely
 import shapely.affinity
 import shapely.validation
-from shapely.geometry import LineString, MultiPolygon, Polygon
+from shapely.geometry import MultiPolygon, Polygon
 from shapely.geometry.polygon import orient
 
 from . import sphere
