@@ -55,14 +55,15 @@ MAP_FIELDS = {
 
 
 def _base_layout(fig: go.Figure, **extra) -> None:
-    fig.update_layout(
+    layout = dict(
         font=dict(family=FONT, color=INK, size=12),
         paper_bgcolor=PAPER,
         plot_bgcolor=PAPER,
         margin=dict(l=60, r=20, t=40, b=45),
         hoverlabel=dict(font=dict(family=FONT)),
-        **extra,
     )
+    layout.update(extra)
+    fig.update_layout(**layout)
 
 
 def _convert(values, unit: str, area_m2: float):
@@ -130,7 +131,7 @@ def symmetric_limit(values, quantile: float = 0.99) -> float:
     return limit if limit > 0 else (float(finite.max()) or 1.0)
 
 
-def _arrows(lon, lat, u, v, target: int = 22):
+def _arrows(lon, lat, u, v, target: int = 16):
     """Quiver arrows as line segments: subsample to about `target` arrows across the map."""
     lon = np.asarray(lon, dtype=float)
     lat = np.asarray(lat, dtype=float)
@@ -238,12 +239,13 @@ def map_figure(
     lat_min, lat_max = float(lat.min()), float(lat.max())
     if coastline:
         cx, cy = _coastline_xy(coastline, lon_min, lon_max)
-        fig.add_trace(
-            go.Scatter(
-                x=cx, y=cy, mode="lines", line=dict(color="rgba(35,48,59,0.75)", width=1),
-                hoverinfo="skip", name="coastline", showlegend=False,
+        for width, color in ((2.6, "rgba(255,255,255,0.55)"), (1.0, "rgba(25,32,40,0.9)")):
+            fig.add_trace(
+                go.Scatter(
+                    x=cx, y=cy, mode="lines", line=dict(color=color, width=width),
+                    hoverinfo="skip", name="coastline", showlegend=False,
+                )
             )
-        )
     # the grid's extent (half a cell beyond the outer centres)
     dx = float(np.median(np.diff(lon))) / 2 if lon.size > 1 else 0.5
     dy = float(np.median(np.diff(lat))) / 2 if lat.size > 1 else 0.5
@@ -258,7 +260,7 @@ def map_figure(
     if arrows and field == "ivt":
         ax, ay, ref, _ = _arrows(lon, lat, snapshot["ivt_u"].values, snapshot["ivt_v"].values)
         if ax:
-            for width, color in ((3.2, "rgba(255,255,255,0.85)"), (1.3, "#1d2733")):
+            for width, color in ((3.0, "rgba(255,255,255,0.8)"), (1.2, "#1d2733")):
                 fig.add_trace(
                     go.Scatter(
                         x=ax, y=ay, mode="lines", line=dict(color=color, width=width),
@@ -302,6 +304,7 @@ def map_figure(
         title=dict(text=f"{title}{' · ' + time_label if time_label else ''}", x=0.01,
                    font=dict(size=14)),
         dragmode=dragmode,
+        margin=dict(l=60, r=10, t=34, b=40),
         uirevision=uirevision,
         newshape=dict(line=dict(color=WARM, width=2), fillcolor="rgba(181,101,29,0.12)"),
         shapes=[],
@@ -313,7 +316,9 @@ def map_figure(
     )
     fig.update_yaxes(
         title_text="latitude (°N)", range=[lat_min - dy, lat_max + dy], showgrid=False,
-        zeroline=False, ticksuffix="°", scaleanchor="x", scaleratio=1, constrain="domain",
+        zeroline=False, ticksuffix="°", scaleanchor="x", constrain="domain",
+        # degrees of latitude drawn 1/cos(mid-latitude) times longer: shapes look right locally
+        scaleratio=min(3.0, 1.0 / max(math.cos(math.radians((lat_min + lat_max) / 2)), 0.33)),
     )
     return fig
 
@@ -504,3 +509,12 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
         "total_value": float(w[-1] - w[0]),
     })
     return rows
+
+
+def empty_figure(text: str) -> go.Figure:
+    """A blank panel carrying one line of text (no data yet, or why there is none)."""
+    fig = go.Figure()
+    fig.add_annotation(text=text, showarrow=False, xref="paper", yref="paper", x=0.5, y=0.5,
+                       font=dict(color=MUTED, size=13))
+    _base_layout(fig, xaxis=dict(visible=False), yaxis=dict(visible=False))
+    return fig

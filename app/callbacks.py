@@ -1,0 +1,674 @@
+"""Behaviour of the dashboard: regions in, budgets and maps out.
+
+All computation goes through the engine (budget.*); this module only moves data between
+the page and the engine and turns every user-facing problem into one visible sentence.
+Callbacks are registered at import with ``dash.callback`` (module level, so the background
+job can be pickled); ``configure`` (called by server.create_app) sets what they may read.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import hashlib
+import json
+import logging
+import os
+import re
+import tempfile
+import threading
+import uuid
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from dash import Input, Output, State, callback, ctx, dcc, html, no_update
+from dash.exceptions import PreventUpdate
+
+from budget.errors import FluxfenceError
+
+from . import figures
+
+log = logging.getLogger("fluxfence.app")
+
+MAX_REGIONS = 30
+MAP_MAX_CELLS = 250_000  # larger grids are thinned for display only
+
+_STATE: dict = {"sources": {}, "cache_dir": None, "assets": None, "upload_limit": 10 * 2**20}
+_LOCK = threading.Lock()
+_FIELDS: dict = {}
+_SNAPSHOTS: dict = {}
+_CACHE: dict = {}
+
+
+def configure(sources, cache_dir, assets, upload_limit) -> None:
+    """Called by server.create_app: the field sets, the cache folder, the upload cap."""
+    _STATE["sources"] = {s["id"]: s for s in sources}
+    _STATE["cache_dir"] = str(cache_dir)
+    _STATE["assets"] = str(assets)
+    _STATE["upload_limit"] = int(upload_limit)
+    _FIELDS.clear()
+    _SNAPSHOTS.clear()
+    _CACHE.clear()
+
+
+# ---------------------------------------------------------------------------------------------
+# server-side state: opened fields, map snapshots, the result cache
+# ---------------------------------------------------------------------------------------------
+def _source(source_id):
+    src = _STATE["sources"].get(str(source_id))
+    if src is None:
+        raise KeyError("unknown field set")
+    return src
+
+
+def _fields(source_id):
+    """The opened Fields of a source (opened once per process; lazy, dask-backed)."""
+    from budget.fields import open_fields
+
+    key = (os.getpid(), str(source_id))
+    with _LOCK:
+        if key not in _FIELDS:
+            _FIELDS[key] = open_fields(_source(source_id)["paths"])
+        return _FIELDS[key]
+
+
+def _results():
+    import diskcache
+
+    key = os.getpid()
+    if key not in _CACHE:
+        _CACHE[key] = diskcache.Cache(str(Path(_STATE["cache_dir"]) / "budgets"),
+                                      size_limit=2**31)
+    return _CACHE[key]
+
+
+def _snapshot(source_id, time_index: int):
+    from budget.maps import column_snapshot
+
+    key = (os.getpid(), str(source_id), int(time_index))
+    with _LOCK:
+        hit = _SNAPSHOTS.get(key)
+    if hit is not None:
+        return hit
+    fields = _fields(source_id)
+    snap = column_snapshot(fields, int(time_index))
+    ny, nx = snap.sizes["lat"], snap.sizes["lon"]
+    if ny * nx > MAP_MAX_CELLS:
+        stride = int(np.ceil(np.sqrt(ny * nx / MAP_MAX_CELLS)))
+        snap = snap.isel(lat=slice(None, None, stride), lon=slice(None, None, stride))
+    with _LOCK:
+        if len(_SNAPSHOTS) > 96:
+            _SNAPSHOTS.clear()
+        _SNAPSHOTS[key] = snap
+    return snap
+
+
+_COAST: dict = {}
+
+
+def _coastline():
+    if "lines" not in _COAST:
+        _COAST["lines"] = figures.load_coastline(
+            Path(_STATE["assets"]) / "coastline_110m.geojson")
+    return _COAST["lines"]
+
+
+def _budget_key(source_id, geojson: dict, method: str) -> str:
+    src = _source(source_id)
+    stamps = []
+    for p in src["paths"]:
+        try:
+            st = os.stat(p)
+            stamps.append([p, st.st_mtime_ns, st.st_size])
+        except OSError:
+            stamps.append([p, None, None])
+    props = geojson.get("properties") or {}
+    blob = json.dumps({
+        "files": stamps,
+        "geometry": geojson.get("geometry"),
+        "kind": props.get("region_kind"),
+        "great_circle": props.get("great_circle"),
+        "bbox": props.get("bbox"),
+        "method": method,
+    }, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()[:32]
+
+
+def _message(exc: BaseException, doing: str) -> str:
+    """One sentence for the user; a traceback only in the server log."""
+    if isinstance(exc, FluxfenceError):
+        return str(exc)
+    log.exception("unexpected problem while %s", doing)
+    return (f"Something unexpected went wrong while {doing} ({type(exc).__name__}); "
+            "this is a bug in Fluxfence — the details are in the server log.")
+
+
+def _iso(t) -> str:
+    return pd.Timestamp(t).strftime("%Y-%m-%d %H:%M UTC")
+
+
+def _slug(name: str) -> str:
+    s = re.sub(r"[^A-Za-z0-9]+", "_", name or "region").strip("_").lower()
+    return s[:60] or "region"
+
+
+# ---------------------------------------------------------------------------------------------
+# regions: from the map, clicks, uploads and typed boxes into the list
+# ---------------------------------------------------------------------------------------------
+_PAIR = re.compile(r"(-?\d*\.?\d+(?:[eE][-+]?\d+)?)\s*,\s*(-?\d*\.?\d+(?:[eE][-+]?\d+)?)")
+
+
+def path_vertices(path: str):
+    """Vertices of a Plotly closed-path shape ("M x,y L x,y … Z") in data coordinates."""
+    pts = [(float(a), float(b)) for a, b in _PAIR.findall(path or "")]
+    if len(pts) > 1 and pts[0] == pts[-1]:
+        pts = pts[:-1]
+    return [p[0] for p in pts], [p[1] for p in pts]
+
+
+def _record(region, rid: str, name: str) -> dict:
+    region.name = name
+    feature = region.to_geojson()
+    rings = [[np.round(r.lon, 5).tolist(), np.round(r.lat, 5).tolist()] for r in region.rings]
+    return {"id": rid, "name": name, "geojson": feature, "rings": rings,
+            "kind": region.kind, "area_km2": region.area_m2() / 1e6,
+            "vertices": int(region.vertex_count)}
+
+
+def _new_id(regions) -> str:
+    used = {r["id"] for r in regions}
+    n = len(regions) + 1
+    while f"r{n}" in used:
+        n += 1
+    return f"r{n}"
+
+
+def _decode_upload(contents: str, filename: str) -> bytes:
+    from budget.errors import RegionError
+
+    try:
+        _, b64 = contents.split(",", 1)
+        data = base64.b64decode(b64, validate=True)
+    except (ValueError, binascii.Error):
+        raise RegionError(f"The upload of '{filename}' arrived damaged; upload the file again.")
+    limit = _STATE["upload_limit"]
+    if len(data) > limit:
+        raise RegionError(
+            f"The file '{filename}' is {len(data) / 2**20:.1f} MB, more than the "
+            f"{limit / 2**20:g} MB allowed for a region; simplify the outline or zip the "
+            "shapefile.")
+    return data
+
+
+def _upload_features(filename: str, data: bytes) -> list[dict]:
+    from budget.errors import RegionError
+    from budget.region import list_features
+
+    ext = Path(filename).suffix.lower()
+    if ext in (".geojson", ".json"):
+        return list_features(data)
+    if ext == ".zip":
+        with tempfile.TemporaryDirectory() as tmp:
+            p = Path(tmp) / "upload.zip"
+            p.write_bytes(data)
+            return list_features(str(p))
+    if ext == ".shp":
+        return [{"index": 0, "name": Path(filename).stem}]
+    raise RegionError(
+        f"The uploaded file '{filename}' has an unsupported type '{ext or '(none)'}'; upload "
+        ".geojson, .json or a .zip holding a shapefile.")
+
+
+_REGION_OUTPUTS = [  # (keyword used in _pack, component, property)
+    ("regions", "regions", "data"), ("options", "region-select", "options"),
+    ("selected", "region-select", "value"), ("vertices", "vertices", "data"),
+    ("message", "region-message", "children"), ("message_class", "region-message", "className"),
+    ("feature_row", "feature-row", "style"), ("feature_options", "feature", "options"),
+    ("feature_value", "feature", "value"), ("held", "upload-held", "data"),
+    ("name", "region-name", "value"), ("upload_contents", "upload", "contents"),
+]
+
+
+def _pack(**values):
+    unknown = set(values) - {k for k, _, _ in _REGION_OUTPUTS}
+    if unknown:
+        raise TypeError(f"unknown outputs {unknown}")
+    return tuple(values.get(k, no_update) for k, _, _ in _REGION_OUTPUTS)
+
+
+def _options(regions):
+    return [{"label": r["name"], "value": r["id"]} for r in regions]
+
+
+@callback(
+    [Output(c, p) for _, c, p in _REGION_OUTPUTS],
+    Input("map", "relayoutData"),
+    Input("map", "clickData"),
+    Input("click-close", "n_clicks"),
+    Input("click-undo", "n_clicks"),
+    Input("click-clear", "n_clicks"),
+    Input("map-tool", "value"),
+    Input("upload", "contents"),
+    Input("feature-use", "n_clicks"),
+    Input("box-add", "n_clicks"),
+    Input("region-rename", "n_clicks"),
+    Input("region-remove", "n_clicks"),
+    Input("region-select", "value"),
+    State("regions", "data"),
+    State("vertices", "data"),
+    State("upload", "filename"),
+    State("upload-held", "data"),
+    State("feature", "value"),
+    State("box-west", "value"),
+    State("box-south", "value"),
+    State("box-east", "value"),
+    State("box-north", "value"),
+    State("region-name", "value"),
+    prevent_initial_call=True,
+)
+def edit_regions(relayout, click, _close, _undo, _clear, tool, contents, _use, _box, _rename,
+                 _remove, selected, regions, vertices, filename, held, feature, west, south,
+                 east, north, typed_name):
+    from budget.region import region_from_bbox, region_from_upload, region_from_vertices
+
+    trigger = ctx.triggered_id
+    regions = list(regions or [])
+    vertices = list(vertices or [])
+
+    def added(region, name):
+        if len(regions) >= MAX_REGIONS:
+            return _pack(message=f"The list holds {MAX_REGIONS} regions already; "
+                         "remove one before adding another.", message_class="notice error")
+        rid = _new_id(regions)
+        rec = _record(region, rid, name)
+        new = regions + [rec]
+        return _pack(regions=new, options=_options(new), selected=rid,
+                     message=f"Added “{name}”: {rec['area_km2']:,.0f} km².",
+                     message_class="notice", name=name)
+
+    def failed(exc, doing):
+        return _pack(message=_message(exc, doing), message_class="notice error")
+
+    try:
+        if trigger == "map":
+            prop = ctx.triggered[0]["prop_id"].split(".")[-1]
+            if prop == "clickData":
+                if tool != "click" or not click or not click.get("points"):
+                    raise PreventUpdate
+                pt = click["points"][0]
+                vertices.append([float(pt["x"]), float(pt["y"])])
+                return _pack(vertices=vertices)
+            shapes = (relayout or {}).get("shapes")
+            if not shapes:
+                raise PreventUpdate
+            shape = shapes[-1]
+            n = sum(1 for r in regions) + 1
+            if shape.get("type") == "rect":
+                xs = sorted([float(shape["x0"]), float(shape["x1"])])
+                ys = sorted([float(shape["y0"]), float(shape["y1"])])
+                region = region_from_bbox(round(xs[0], 2), round(ys[0], 2), round(xs[1], 2),
+                                          round(ys[1], 2))
+                return added(region, f"Box {n}")
+            if shape.get("type") == "path":
+                lon, lat = path_vertices(shape.get("path", ""))
+                region = region_from_vertices(np.round(lon, 3), np.round(lat, 3))
+                return added(region, f"Shape {n}")
+            raise PreventUpdate
+        if trigger == "click-undo":
+            return _pack(vertices=vertices[:-1])
+        if trigger in ("click-clear", "map-tool"):
+            return _pack(vertices=[])
+        if trigger == "click-close":
+            if len(vertices) < 3:
+                return _pack(message=f"A region needs at least 3 vertices; "
+                             f"{len(vertices)} placed so far — click more points on the map.",
+                             message_class="notice error")
+            region = region_from_vertices([v[0] for v in vertices], [v[1] for v in vertices])
+            out = added(region, f"Clicked shape {len(regions) + 1}")
+            return out[:3] + ([],) + out[4:]
+        if trigger == "box-add":
+            region = region_from_bbox(west, south, east, north)
+            return added(region, f"Typed box {len(regions) + 1}")
+        if trigger == "upload":
+            if not contents:
+                raise PreventUpdate
+            name = Path(filename or "upload").name
+            data = _decode_upload(contents, name)
+            feats = _upload_features(name, data)
+            if len(feats) > 1:
+                token = uuid.uuid4().hex
+                _results().set(f"upload:{token}", (name, data), expire=3600)
+                options = [{"label": f"{f['name']}" + (f" ({f['geometry']})"
+                            if f.get("geometry") else ""), "value": f["index"]} for f in feats]
+                return _pack(feature_row={"display": "flex"}, feature_options=options,
+                             feature_value=feats[0]["index"], held=token,
+                             message=f"'{name}' holds {len(feats)} features; pick one "
+                             "and press “Use this feature”.", message_class="notice",
+                             upload_contents=None)
+            region = region_from_upload(name, data)
+            out = added(region, region.name or Path(name).stem)
+            return out[:11] + (None,)
+        if trigger == "feature-use":
+            if not held:
+                raise PreventUpdate
+            stored = _results().get(f"upload:{held}")
+            if stored is None:
+                return _pack(message="The uploaded file has expired; upload it again.",
+                             message_class="notice error")
+            name, data = stored
+            region = region_from_upload(name, data, feature=int(feature))
+            out = list(added(region, region.name or f"{Path(name).stem} {feature}"))
+            out[6] = {"display": "none"}
+            out[9] = None
+            return tuple(out)
+        if trigger == "region-rename":
+            new_name = (typed_name or "").strip()
+            if not selected or not new_name:
+                return _pack(message="Choose a region and type a name first.",
+                             message_class="notice error")
+            for r in regions:
+                if r["id"] == selected:
+                    r["name"] = new_name
+                    r["geojson"].setdefault("properties", {})["name"] = new_name
+            return _pack(regions=regions, options=_options(regions),
+                         message="", message_class="notice")
+        if trigger == "region-remove":
+            if not selected:
+                raise PreventUpdate
+            left = [r for r in regions if r["id"] != selected]
+            value = left[-1]["id"] if left else None
+            return _pack(regions=left, options=_options(left),
+                         selected=value, message="",
+                         name=left[-1]["name"] if left else "")
+        if trigger == "region-select":
+            name = next((r["name"] for r in regions if r["id"] == selected), "")
+            return _pack(name=name, message="")
+    except PreventUpdate:
+        raise
+    except Exception as exc:  # noqa: BLE001 - every problem becomes one visible sentence
+        doing = {"upload": "reading the uploaded file", "feature-use": "reading the feature",
+                 "box-add": "making the box"}.get(trigger, "making the region")
+        out = failed(exc, doing)
+        if trigger == "upload":
+            return out[:11] + (None,)
+        return out
+    raise PreventUpdate
+
+
+@callback(
+    Output("region-info", "children"),
+    Input("regions", "data"),
+    Input("region-select", "value"),
+)
+def region_info(regions, selected):
+    rec = next((r for r in regions or [] if r["id"] == selected), None)
+    if rec is None:
+        return "Draw a box or a shape on the map, click vertices, upload a file or type a box."
+    kind = "box" if rec.get("kind") == "bbox" else f"{rec.get('vertices', 0)} vertices"
+    return f"{rec['area_km2']:,.0f} km² · {kind}"
+
+
+@callback(
+    Output("click-bar", "style"),
+    Output("click-count", "children"),
+    Input("map-tool", "value"),
+    Input("vertices", "data"),
+)
+def click_bar(tool, vertices):
+    if tool != "click":
+        return {"display": "none"}, no_update
+    n = len(vertices or [])
+    text = ("Click on the map to place vertices (they snap to grid-cell centres)."
+            if n == 0 else f"{n} vertices placed; close the shape when done.")
+    return {"display": "flex"}, text
+
+
+@callback(
+    Output("download-region", "data"),
+    Input("dl-region", "n_clicks"),
+    State("regions", "data"),
+    State("region-select", "value"),
+    prevent_initial_call=True,
+)
+def download_region(_n, regions, selected):
+    rec = next((r for r in regions or [] if r["id"] == selected), None)
+    if rec is None:
+        raise PreventUpdate
+    collection = {"type": "FeatureCollection", "features": [rec["geojson"]]}
+    return dcc.send_string(json.dumps(collection, indent=1), f"{_slug(rec['name'])}.geojson")
+
+
+# ---------------------------------------------------------------------------------------------
+# time: slider, play/pause
+# ---------------------------------------------------------------------------------------------
+def _marks(times, count=4):
+    n = len(times)
+    if n == 0:
+        return {}
+    idx = sorted(set(np.linspace(0, n - 1, min(count, n)).round().astype(int).tolist()))
+    return {int(i): pd.Timestamp(times[i]).strftime("%-d %b %Hh") for i in idx}
+
+
+@callback(
+    Output("time", "max"),
+    Output("time", "marks"),
+    Output("period", "max"),
+    Output("period", "marks"),
+    Output("period", "value"),
+    Output("map-message", "children"),
+    Output("map-message", "className"),
+    Input("source", "value"),
+)
+def setup_time(source_id):
+    try:
+        times = _fields(source_id).ds["time"].values
+    except Exception as exc:  # noqa: BLE001
+        return 1, {}, 1, {}, [0, 1], _message(exc, "opening the fields"), "notice error"
+    n = len(times)
+    marks = _marks(times)
+    return max(n - 1, 0), marks, max(n - 1, 0), marks, [0, max(n - 1, 0)], "", "notice"
+
+
+@callback(
+    Output("time", "value"),
+    Input("player", "n_intervals"),
+    Input("source", "value"),
+    State("time", "value"),
+    State("time", "max"),
+    prevent_initial_call=True,
+)
+def advance_time(_tick, _source, value, vmax):
+    if ctx.triggered_id == "source":
+        return 0
+    vmax = int(vmax or 0)
+    return 0 if vmax <= 0 else (int(value or 0) + 1) % (vmax + 1)
+
+
+@callback(
+    Output("player", "disabled"),
+    Output("play", "children"),
+    Input("play", "n_clicks"),
+    State("player", "disabled"),
+    prevent_initial_call=True,
+)
+def play_pause(_n, disabled):
+    return (False, "❚❚ Pause") if disabled else (True, "▶ Play")
+
+
+# ---------------------------------------------------------------------------------------------
+# the map
+# ---------------------------------------------------------------------------------------------
+@callback(
+    Output("map", "figure"),
+    Output("time-label", "children"),
+    Input("source", "value"),
+    Input("map-field", "value"),
+    Input("time", "value"),
+    Input("map-arrows", "value"),
+    Input("regions", "data"),
+    Input("region-select", "value"),
+    Input("vertices", "data"),
+    Input("map-tool", "value"),
+)
+def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool):
+    try:
+        fields = _fields(source_id)
+        nt = fields.ds.sizes["time"]
+        t = min(max(int(time_index or 0), 0), nt - 1)
+        snap = _snapshot(source_id, t)
+        label = _iso(fields.ds["time"].values[t])
+        dragmode = "pan" if tool in ("pan", "click") else tool
+        fig = figures.map_figure(
+            snap, field or "ivt", coastline=_coastline(), regions=regions or [],
+            active_region=selected, vertices=vertices or [], time_label=label,
+            arrows=bool(arrows), dragmode=dragmode, uirevision=str(source_id),
+        )
+        return fig, f"{label}  ·  step {t + 1} of {nt}"
+    except Exception as exc:  # noqa: BLE001
+        return figures.empty_figure(_message(exc, "drawing the map")), ""
+
+
+# ---------------------------------------------------------------------------------------------
+# the budget: request → (cache or background job) → figures
+# ---------------------------------------------------------------------------------------------
+@callback(
+    Output("want", "data"),
+    Output("job", "data"),
+    Input("region-select", "value"),
+    Input("method", "value"),
+    Input("source", "value"),
+    Input("regions", "data"),
+)
+def request_budget(selected, method, source_id, regions):
+    rec = next((r for r in regions or [] if r["id"] == selected), None)
+    if rec is None:
+        return None, no_update
+    try:
+        key = _budget_key(source_id, rec["geojson"], method)
+    except KeyError:
+        return None, no_update
+    want = {"key": key, "source": str(source_id), "method": method, "geojson": rec["geojson"],
+            "name": rec["name"]}
+    if key in _results():
+        return want, no_update
+    return want, want
+
+
+@callback(
+    Output("done", "data"),
+    Input("job", "data"),
+    background=True,
+    progress=[Output("budget-progress", "value"), Output("budget-progress", "max")],
+    progress_default=["0", "1"],
+    running=[(Output("budget-running", "style"), {"display": "flex"}, {"display": "none"})],
+    cancel=[Input("budget-cancel", "n_clicks")],
+    interval=500,
+    prevent_initial_call=True,
+)
+def run_budget(set_progress, job):
+    """The background job: compute the budget of a region with the engine and cache it."""
+    from budget.ledger import compute
+    from budget.region import region_from_geojson
+
+    if not job:
+        raise PreventUpdate
+    key = job["key"]
+    cache = _results()
+    if key in cache:
+        return {"key": key, "error": None}
+    try:
+        fields = _fields(job["source"])
+        region = region_from_geojson(job["geojson"], name=job.get("name"))
+        ds = compute(fields, region, method=job["method"], profiles=True,
+                     progress=lambda done, total: set_progress((str(done), str(total))))
+        ds = ds.load()
+        cache.set(key, ds)
+        return {"key": key, "error": None}
+    except Exception as exc:  # noqa: BLE001
+        return {"key": key, "error": _message(exc, "computing the budget")}
+
+
+def _table(rows):
+    head = html.Thead(html.Tr([html.Th("over the period"), html.Th("mean"), html.Th("total")]))
+    body = html.Tbody([
+        html.Tr([html.Td(r["term"]), html.Td(r["mean"], className="num"),
+                 html.Td(r["total"], className="num")]) for r in rows
+    ])
+    return html.Table([head, body], className="totals")
+
+
+@callback(
+    Output("series", "figure"),
+    Output("profile", "figure"),
+    Output("curtain", "figure"),
+    Output("budget-table", "children"),
+    Output("budget-message", "children"),
+    Output("budget-message", "className"),
+    Output("period-label", "children"),
+    Input("want", "data"),
+    Input("done", "data"),
+    Input("units", "value"),
+    Input("time", "value"),
+    Input("period", "value"),
+)
+def show_budget(want, done, units, time_index, period):
+    if not want:
+        blank = figures.empty_figure("Draw a region on the map to see its budget.")
+        return blank, blank, blank, None, "", "notice", ""
+    ds = _results().get(want["key"])
+    if ds is None:
+        if done and done.get("key") == want["key"] and done.get("error"):
+            blank = figures.empty_figure("No budget for this region.")
+            return blank, blank, blank, None, done["error"], "notice error", ""
+        waiting = figures.empty_figure("Computing the budget…")
+        return waiting, waiting, waiting, no_update, "", "notice", ""
+    try:
+        nt = ds.sizes["time"]
+        t = min(max(int(time_index or 0), 0), nt - 1)
+        lo, hi = (period or [0, nt - 1])[:2]
+        lo, hi = int(lo), int(min(hi, nt - 1))
+        times = ds["time"].values
+        series = figures.series_figure(ds, units, time_index=t)
+        profile = figures.profile_figure(ds, t)
+        curtain = figures.curtain_figure(ds, t)
+        table = _table(figures.period_rows(ds, units, lo, hi))
+        label = f"{_iso(times[lo])} → {_iso(times[hi])}"
+        note = ""
+        warnings = json.loads(ds.attrs.get("warnings", "[]") or "[]")
+        if warnings:
+            note = "Note: " + " ".join(warnings)
+        return series, profile, curtain, table, note, "notice", label
+    except Exception as exc:  # noqa: BLE001
+        blank = figures.empty_figure("No budget to show.")
+        return blank, blank, blank, None, _message(exc, "drawing the budget"), "notice error", ""
+
+
+@callback(
+    Output("download-csv", "data"),
+    Input("dl-csv", "n_clicks"),
+    State("want", "data"),
+    prevent_initial_call=True,
+)
+def download_csv(_n, want):
+    from budget.export import to_csv_text
+
+    ds = _results().get(want["key"]) if want else None
+    if ds is None:
+        raise PreventUpdate
+    return dcc.send_string(to_csv_text(ds), f"{_slug(want['name'])}_{want['method']}.csv")
+
+
+@callback(
+    Output("download-nc", "data"),
+    Input("dl-nc", "n_clicks"),
+    State("want", "data"),
+    prevent_initial_call=True,
+)
+def download_netcdf(_n, want):
+    from budget.export import to_netcdf_bytes
+
+    ds = _results().get(want["key"]) if want else None
+    if ds is None:
+        raise PreventUpdate
+    return dcc.send_bytes(to_netcdf_bytes(ds), f"{_slug(want['name'])}_{want['method']}.nc")

@@ -1,0 +1,128 @@
+"""Playwright fixtures: Debian's Chromium, the dashboard served inside the test process.
+
+Never `playwright install`: the launch args point pytest-playwright at /usr/bin/chromium.
+Each test gets a fresh page that records console errors and every request URL, and saves a
+screenshot under a temporary folder (printed at the end of the session).
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+import pytest
+
+CHROMIUM = "/usr/bin/chromium"
+
+
+@pytest.fixture(scope="session")
+def browser_type_launch_args(browser_type_launch_args):
+    return {
+        **browser_type_launch_args,
+        "executable_path": CHROMIUM,
+        "headless": True,
+        "args": [
+            "--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
+            "--disable-background-networking", "--disable-component-update", "--disable-sync",
+            "--no-first-run", "--disable-quic",
+        ],
+    }
+
+
+@pytest.fixture(scope="session")
+def browser_context_args(browser_context_args):
+    return {**browser_context_args, "viewport": {"width": 1440, "height": 1000},
+            "accept_downloads": True}
+
+
+@pytest.fixture(scope="session")
+def shots_dir(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("screenshots")
+    yield folder
+    print(f"\nscreenshots: {folder}")
+
+
+@pytest.fixture(scope="session")
+def dashboard(tmp_path_factory):
+    """The sample-event dashboard on a free 127.0.0.1 port, with its own cache folder."""
+    from werkzeug.serving import make_server
+
+    from app.server import create_app
+
+    cache = tmp_path_factory.mktemp("dash-cache")
+    app = create_app(cache_dir=cache)
+    server = make_server("127.0.0.1", 0, app.server, threaded=True)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    url = f"http://127.0.0.1:{server.server_port}"
+    yield {"url": url, "app": app, "cache": Path(cache)}
+    server.shutdown()
+
+
+class Watch:
+    """Console errors, uncaught page errors and every request the page makes."""
+
+    def __init__(self, page, base_url):
+        self.base = base_url
+        self.errors: list[str] = []
+        self.requests: list[str] = []
+        page.on("console", lambda m: self.errors.append(m.text) if m.type == "error" else None)
+        page.on("pageerror", lambda e: self.errors.append(f"page error: {e}"))
+        page.on("request", lambda r: self.requests.append(r.url))
+
+    def outside(self) -> list[str]:
+        ok = (self.base + "/", "data:", "blob:")
+        return [u for u in self.requests if not u.startswith(ok) and u != self.base]
+
+
+@pytest.fixture
+def app_page(page, dashboard, shots_dir, request):
+    """The dashboard opened and its first map drawn; a screenshot is saved after the test."""
+    watch = Watch(page, dashboard["url"])
+    page.goto(dashboard["url"] + "/")
+    page.wait_for_selector("#map .heatmaplayer image, #map .hm image", timeout=30_000)
+    page.wait_for_function("document.querySelector('#time-label').textContent.length > 0")
+    page.watch = watch
+    yield page
+    page.screenshot(path=str(shots_dir / f"{request.node.name}.png"), full_page=True)
+    assert not watch.errors, f"console errors: {watch.errors}"
+    assert not watch.outside(), f"requests left 127.0.0.1: {watch.outside()}"
+
+
+# ---------------------------------------------------------------------------------------------
+# helpers shared by the tests
+# ---------------------------------------------------------------------------------------------
+def to_pixels(page, lon: float, lat: float) -> tuple[float, float]:
+    """Page pixel coordinates of a lon/lat point on the map (BROWSER.md recipe)."""
+    return tuple(page.evaluate(
+        """([lon, lat]) => {
+            const gd = document.querySelector('#map .js-plotly-plot');
+            const fl = gd._fullLayout, box = gd.getBoundingClientRect();
+            return [box.left + fl.xaxis._offset + fl.xaxis.l2p(lon),
+                    box.top + fl.yaxis._offset + fl.yaxis.l2p(lat)];
+        }""",
+        [lon, lat],
+    ))
+
+
+def graph_traces(page, graph_id: str) -> list[dict]:
+    return page.evaluate(
+        """(id) => {
+            const gd = document.querySelector('#' + id + ' .js-plotly-plot');
+            const arr = (a) => (a && typeof a.length === 'number') ? Array.from(a) : a;
+            return gd && gd._fullData ? gd._fullData.map(t => ({name: t.name, x: arr(t.x), y: arr(t.y),
+                                                     type: t.type})) : [];
+        }""",
+        graph_id,
+    )
+
+
+def wait_for_series(page, timeout=60_000):
+    """Wait until the budget series shows data (the background job has finished)."""
+    page.wait_for_function(
+        """() => {
+            const gd = document.querySelector('#series .js-plotly-plot');
+            return gd && gd.data && gd.data.some(t => t.name === 'P − E');
+        }""",
+        timeout=timeout,
+    )

@@ -1,0 +1,180 @@
+"""The dashboard in headless Chromium on the invented sample event.
+
+Every test (through the app_page fixture) also checks that the page logged no console error
+and made no request beyond 127.0.0.1, and saves a screenshot.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from tests.browser.conftest import graph_traces, to_pixels, wait_for_series
+
+pytestmark = pytest.mark.browser
+
+
+@pytest.fixture(scope="module")
+def sample():
+    from sample_fields import ensure_sample
+
+    return ensure_sample()
+
+
+def _pme_trace(page):
+    return next(t for t in graph_traces(page, "series") if t["name"] == "P − E")
+
+
+def _download(page, button_id):
+    with page.expect_download() as info:
+        page.click(f"#{button_id}")
+    return info.value
+
+
+def test_page_loads_offline_with_map_footer_and_no_errors(app_page):
+    page = app_page
+    traces = graph_traces(page, "map")
+    names = {t["name"] for t in traces}
+    assert "ivt" in names and "coastline" in names and "transport arrows" in names
+    assert "2025-01-15 00:00 UTC" in page.inner_text("#time-label")
+    footer = page.inner_text("footer")
+    assert "not a substitute for gauge records or official forecasts" in footer
+    assert "Natural Earth" in footer
+    # Plotly's JavaScript came from this server, not a CDN
+    assert any("plotly" in u for u in page.watch.requests)
+
+
+def test_drawn_rectangle_gives_the_engine_budget_of_that_box(app_page, sample):
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_geojson
+
+    page = app_page
+    x0, y0 = to_pixels(page, 2.0, 41.0)
+    x1, y1 = to_pixels(page, 12.0, 48.0)
+    page.mouse.move(x0, y0)
+    page.mouse.down()
+    for k in range(1, 11):
+        page.mouse.move(x0 + (x1 - x0) * k / 10, y0 + (y1 - y0) * k / 10)
+    page.mouse.up()
+    wait_for_series(page)
+    assert "Box 1" in page.inner_text("#region-select")
+    shown = np.asarray(_pme_trace(page)["y"], dtype=float)
+
+    # the region exactly as the dashboard holds it, through its GeoJSON download
+    download = _download(page, "dl-region")
+    feature = json.loads(open(download.path(), encoding="utf-8").read())["features"][0]
+    region = region_from_geojson(feature)
+    west, south, east, north = region.bounds
+    # where the mouse went (pixel → degree rounding: well under half a grid cell of 0.5°)
+    assert (west, south, east, north) == pytest.approx((2.0, 41.0, 12.0, 48.0), abs=0.2)
+    expected = compute(open_fields([str(sample.levels)]), region)
+    # the series is drawn in mm/day: kg m-2 s-1 × 86400 (CHECKS.md, conversions)
+    np.testing.assert_allclose(shown, expected["p_minus_e"].values * 86400, rtol=1e-9)
+    # the outline of the active region is on the map
+    assert any(t["name"] == "region: Box 1" for t in graph_traces(page, "map"))
+    # the boundary profile and the height curtain of a level input are drawn
+    assert any(t["name"] == "import density" for t in graph_traces(page, "profile"))
+    assert any(t["type"] == "heatmap" for t in graph_traces(page, "curtain"))
+
+
+def test_upload_geojson_and_an_invalid_one_shows_the_engine_message(app_page, sample, tmp_path):
+    from budget.errors import RegionError
+    from budget.region import region_from_upload
+
+    page = app_page
+    page.click("#adder-upload summary")
+    page.set_input_files("#upload input[type=file]", str(sample.basin))
+    wait_for_series(page)
+    assert "Invented basin" in page.inner_text("#region-select")
+
+    # a bow-tie: its edges cross, which the engine rejects with one sentence
+    bad = {"type": "Feature", "properties": {"name": "bow tie"}, "geometry": {
+        "type": "Polygon",
+        "coordinates": [[[0, 40], [10, 50], [10, 40], [0, 50], [0, 40]]]}}
+    path = tmp_path / "bow_tie.geojson"
+    path.write_text(json.dumps(bad), encoding="utf-8")
+    with pytest.raises(RegionError) as caught:
+        region_from_upload("bow_tie.geojson", path.read_bytes())
+    page.set_input_files("#upload input[type=file]", str(path))
+    page.wait_for_selector("#region-message.error", timeout=15_000)
+    message = page.inner_text("#region-message")
+    assert message.strip() == str(caught.value)
+    assert "Traceback" not in page.content()
+    # the basin is still the active region
+    assert "Invented basin" in page.inner_text("#region-select")
+
+
+def test_typed_box_csv_download_matches_the_command_line(app_page, sample, tmp_path):
+    page = app_page
+    page.click("#adder-box summary")
+    for field, value in (("west", "-4"), ("south", "38"), ("east", "9"), ("north", "50")):
+        page.fill(f"#box-{field}", value)
+    page.click("#box-add")
+    wait_for_series(page)
+    page.wait_for_selector("#budget-table table")
+    got = open(_download(page, "dl-csv").path(), encoding="utf-8").read()
+
+    out = tmp_path / "cli.csv"
+    run = subprocess.run(
+        [sys.executable, "-m", "app.cli", "run", str(sample.levels), "--bbox=-4,38,9,50",
+         "--out", str(out), "--quiet"],
+        capture_output=True, text=True, timeout=300,
+    )
+    assert run.returncode == 0, run.stderr
+    want = out.read_text(encoding="utf-8")
+    a, b = pd.read_csv(io.StringIO(got)), pd.read_csv(io.StringIO(want))
+    assert list(a.columns) == list(b.columns)
+    assert list(a["time"]) == list(b["time"])
+    np.testing.assert_allclose(a.drop(columns="time").to_numpy(),
+                               b.drop(columns="time").to_numpy(), rtol=1e-9)
+
+
+def test_region_outside_the_data_shows_the_engine_message(app_page, sample):
+    from budget.errors import FluxfenceError
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_bbox
+
+    page = app_page
+    with pytest.raises(FluxfenceError) as caught:
+        compute(open_fields([str(sample.levels)]), region_from_bbox(100, 10, 110, 20))
+    page.click("#adder-box summary")
+    for field, value in (("west", "100"), ("south", "10"), ("east", "110"), ("north", "20")):
+        page.fill(f"#box-{field}", value)
+    page.click("#box-add")
+    page.wait_for_selector("#budget-message.error", timeout=60_000)
+    assert page.inner_text("#budget-message").strip() == str(caught.value)
+
+
+def test_time_slider_and_play_move_the_map(app_page):
+    page = app_page
+
+    def heat():
+        return page.evaluate("""() => {
+            const gd = document.querySelector('#map .js-plotly-plot');
+            return {z: Array.from(gd.calcdata[0][0].z[20]), title: gd.layout.title.text};
+        }""")
+
+    before = heat()
+    page.click("#play")
+    page.wait_for_function(
+        "!document.querySelector('#time-label').textContent.includes('step 1 of')",
+        timeout=15_000)
+    page.click("#play")  # pause
+    after = heat()
+    assert after["title"] != before["title"]
+    assert after["z"] != before["z"]
+    # a click on the slider's track jumps there (the right end is the last step)
+    track = page.locator("#time").bounding_box()
+    page.mouse.click(track["x"] + track["width"] - 2, track["y"] + track["height"] / 2)
+    page.wait_for_function(
+        "document.querySelector('#time-label').textContent.includes('step 21 of 21')",
+        timeout=15_000)
+    assert "2025-01-20" in heat()["title"]
