@@ -177,52 +177,34 @@ class Boundary:
         return radius * np.sqrt(dphi**2 + (np.cos(pm) * dlam) ** 2)
 
 
-def _densify_edge(lon0, lat0, lon1, lat1, step_deg, great_circle):
-    if great_circle:
-        ang = np.degrees(_central_angle(lon0, lat0, lon1, lat1))
-        n = max(1, int(np.ceil(ang / step_deg)))
-        lons, lats = sphere.great_circle_points(lon0, lat0, lon1, lat1, n + 1)
-        lons = np.asarray(lons, float)
-        # keep the continuous frame of the ring
-        lons = lon0 + np.concatenate([[0.0], np.cumsum((np.diff(lons) + 180.0) % 360.0 - 180.0)])
-        lons[-1] = lon1
-        lats = np.asarray(lats, float)
-        lats[0], lats[-1] = lat0, lat1
-        return lons, lats
-    n = max(1, int(np.ceil(max(abs(lon1 - lon0), abs(lat1 - lat0)) / step_deg)))
-    t = np.linspace(0.0, 1.0, n + 1)
-    return lon0 + t * (lon1 - lon0), lat0 + t * (lat1 - lat0)
-
-
-def _central_angle(lon0, lat0, lon1, lat1):
-    l0, p0, l1, p1 = map(np.radians, (lon0, lat0, lon1, lat1))
-    c = np.sin(p0) * np.sin(p1) + np.cos(p0) * np.cos(p1) * np.cos(l1 - l0)
-    return np.arccos(np.clip(c, -1.0, 1.0))
-
-
 def boundary_of(region, step_deg: float) -> Boundary:
+    """Every ring of the region cut into pieces no longer than step_deg (sphere.densify)."""
     lon0, lat0, lon1, lat1, edge, names, first = [], [], [], [], [], [], []
-    npieces = 0
     for part in region.parts:
         for ring in [part.exterior, *part.holes]:
-            lon = np.asarray(ring.lon, float)
-            lat = np.asarray(ring.lat, float)
-            n = lon.size
-            for k in range(n):
-                a_lon, a_lat = lon[k], lat[k]
-                b_lon, b_lat = lon[(k + 1) % n], lat[(k + 1) % n]
-                if k == n - 1:  # closing edge: keep the continuous frame
-                    b_lon = a_lon + ((b_lon - a_lon + 180.0) % 360.0 - 180.0)
-                    if abs(abs(lon[0] - lon[-1]) - 360.0) < 1e-9:
-                        b_lon = lon[0]
-                xs, ys = _densify_edge(a_lon, a_lat, b_lon, b_lat, step_deg, region.great_circle)
-                first.append(npieces)
-                names.append(ring.edge_names[k])
-                lon0.append(xs[:-1]), lat0.append(ys[:-1]), lon1.append(xs[1:]), lat1.append(ys[1:])
-                edge.append(np.full(xs.size - 1, len(names) - 1))
-                npieces += xs.size - 1
+            lon, lat, e = sphere.densify(ring.lon, ring.lat, step_deg, great_circle=region.great_circle, closed=True)
+            offset = len(names)
+            starts = np.searchsorted(e, np.arange(len(ring.edge_names)))
+            first.extend(sum(len(x) for x in lon0) + starts)
+            names.extend(ring.edge_names)
+            lon0.append(lon[:-1]), lat0.append(lat[:-1]), lon1.append(lon[1:]), lat1.append(lat[1:])
+            edge.append(e + offset)
     cat = np.concatenate
     return Boundary(cat(lon0), cat(lat0), cat(lon1), cat(lat1), cat(edge), names, np.asarray(first))
+
+
+def cover_geometry(region, step_deg: float = 0.05):
+    """The region as a shapely geometry in lon-lat; great-circle edges densified finely."""
+    if not region.great_circle:
+        return region.shapely()
+    polys = []
+    for part in region.parts:
+        rings = []
+        for ring in [part.exterior, *part.holes]:
+            lon, lat, _ = sphere.densify(ring.lon, ring.lat, step_deg, great_circle=True, closed=True)
+            rings.append(np.column_stack([lon, lat]))
+        polys.append(shapely.Polygon(rings[0], rings[1:]))
+    return polys[0] if len(polys) == 1 else shapely.MultiPolygon(polys)
 
 
 # -- cover -----------------------------------------------------------------------------
@@ -241,7 +223,7 @@ def _geometry_area(geom, radius) -> float:
 
 def cover_weights(region, grid: Grid, radius: float = EARTH_RADIUS):
     """Flat cell indices and the spherical area (m2) of each cell's part inside the region."""
-    geom = region.shapely()
+    geom = cover_geometry(region)
     minx, miny, maxx, maxy = geom.bounds
     ae, le = grid.lat_edges, grid.lon_edges
     nlat, nlon = grid.shape
