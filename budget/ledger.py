@@ -15,7 +15,7 @@ from functools import partial
 import numpy as np
 import xarray as xr
 
-from . import __version__
+from . import __version__, closure
 from .constants import STANDARD_GRAVITY
 from .errors import FieldsError, RequestError
 from .stencil import Grid, Stencil, compile_stencil
@@ -77,6 +77,7 @@ class Columns:
     w: np.ndarray  # kg m-2
     ps: np.ndarray | None = None  # Pa (level inputs)
     levels: dict | None = None  # per-level arrays (time × level × cell) for profiles
+    extra: dict | None = None  # closure terms per cell (budget.closure)
 
 
 def _as_fields(fields):
@@ -169,7 +170,7 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
         qu, qv, w = g("qu"), g("qv"), g("w")
         for name, arr in (("qu", qu), ("qv", qv), ("w", w)):
             _check_finite(name, arr, np.ones(arr.shape, bool), fields, st, t0)
-        return Columns(qu, qv, w)
+        return Columns(qu, qv, w, extra=closure.column_extras(ds, g, w))
     u, v, q, ps = g("u"), g("v"), g("q"), g("ps")
     _check_finite("ps", ps, np.ones(ps.shape, bool), fields, st, t0)
     dp = np.moveaxis(fields.vertical.thickness(ps), 0, 1)  # (time, level, cell)
@@ -180,7 +181,8 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
     qv = column_integral(q * v, dp, level_axis=1)
     w = column_integral(q, dp, level_axis=1)
     levels = {"qu": q * u, "qv": q * v, "dp": dp} if profiles else None
-    return Columns(qu, qv, w, ps=ps, levels=levels)
+    extra = closure.level_extras(ds, g, q, u, v, dp)
+    return Columns(qu, qv, w, ps=ps, levels=levels, extra=extra)
 
 
 def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> dict:
@@ -195,6 +197,7 @@ def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> di
         "adiv": c.qu @ st.div_u + c.qv @ st.div_v,
         "w": c.w @ st.cover / st.area,
     }
+    res.update(closure.block_sums(st, c.extra, c.w))
     if profiles:
         length = st.piece_length
         res["density"] = -flux / length
@@ -236,6 +239,10 @@ def compute(
     stencil: Stencil | None = None,
     scheduler=None,
     resume=None,
+    mass_correction: bool | None = None,
+    accumulation_period=None,
+    accumulation_reset=None,
+    evaporation_positive: str | None = None,
 ) -> xr.Dataset:
     """The vapour budget of ``region`` from ``fields`` (a Fields, a Dataset, or file paths).
 
@@ -247,6 +254,12 @@ def compute(
     ("tcp://HOST:PORT") or Client to run the time blocks on a cluster (budget.stream).
     ``resume``: a folder where finished time blocks are kept; after an interruption the same
     call with the same folder computes only the rest; the folder is removed when done.
+
+    ``mass_correction`` applies the barotropic dry-air mass correction (budget.mass): on by
+    default for level inputs, off (unavailable) for column inputs; the uncorrected terms stay in
+    the Dataset (``*_uncorrected``).  ``accumulation_period`` ("1h", "12h", "none"),
+    ``accumulation_reset`` (e.g. "06:00") and ``evaporation_positive`` ("up"/"down") describe
+    accumulated precipitation and evaporation in the files (budget.observed).
     """
     if method not in METHODS:
         raise RequestError(f"Unknown method {method!r}; choose 'boundary' or 'area'.")
@@ -271,10 +284,14 @@ def compute(
     aconv = -out["adiv"]
     conv = bconv if method == "boundary" else aconv
     pme = conv - tend
-    return _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, (curtain, curtain_dp), ds)
+    out["imp"], edge, conv, pme, *closed = closure.close(
+        fields, st, times, res, method, tend, conv, out["imp"], edge, mass_correction,
+        accumulation_period, accumulation_reset, evaporation_positive,
+    )
+    return _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, (curtain, curtain_dp), ds, closed)
 
 
-def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, curtains, ds):
+def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, curtains, ds, closed=None):
     curtain, curtain_dp = curtains
     T = ("time",)
 
@@ -337,4 +354,12 @@ def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pm
             "Conventions": "CF-1.10",
         }
     )
+    if closed is not None:  # closure terms (budget.closure): variables, attributes, warnings
+        cvars, cattrs, cwarn = closed
+        for name, v in cvars.items():
+            out[name] = v
+        out.attrs.update(cattrs)
+        for name in ("vapour_import", "edge_import", "vapour_convergence", "p_minus_e"):
+            out[name].attrs["mass_correction"] = cattrs["mass_correction"]
+        out.attrs["warnings"] = json.dumps(json.loads(out.attrs["warnings"]) + list(cwarn))
     return out
