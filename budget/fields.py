@@ -119,7 +119,8 @@ _HUMIDITY = {
 }
 _PRESSURE = {
     "pa": 1.0, "hpa": 100.0, "mbar": 100.0, "millibar": 100.0, "millibars": 100.0,
-    "mb": 100.0, "kpa": 1000.0, "n m-2": 1.0,
+    "mb": 100.0, "kpa": 1000.0, "n m-2": 1.0, "pascal": 1.0, "pascals": 1.0,
+    "hectopascal": 100.0, "hectopascals": 100.0,
 }
 _FLUX = {
     "kg m-1 s-1": 1.0, "kg/m/s": 1.0, "kg m**-1 s**-1": 1.0, "kg m^-1 s^-1": 1.0,
@@ -202,7 +203,13 @@ class Fields:
             )
         elif isinstance(self.vertical, HybridLevels):
             n = len(self.vertical.b_interface) - 1
-            lines.append(f"vertical: {n} hybrid sigma-pressure levels")
+            a = np.asarray(self.vertical.a_interface_pa, float)
+            b = np.asarray(self.vertical.b_interface, float)
+            lines.append(
+                f"vertical: {n} hybrid sigma-pressure levels, top interface "
+                f"{_fmt(a[0] / 100.0)} hPa + {_fmt(b[0])} ps, bottom "
+                f"{_fmt(a[-1] / 100.0)} hPa + {_fmt(b[-1])} ps"
+            )
         nlat, nlon = self.lat.size, self.lon.size
         dlat = _spacing(self.lat)
         dlon = _spacing(self.lon)
@@ -1016,7 +1023,15 @@ def open_fields(
         isel["lat"] = np.arange(lat.size)[::-1]
         lat = lat[::-1]
     lon_idx, lon = _orient_lon(lon, where)
-    if not np.array_equal(lon_idx, np.arange(lon.size)):
+    if lon.size > 2:
+        step = _spacing(lon)
+        if abs((lon[-1] - lon[0]) - 360.0) <= 0.1 * step:  # a repeated cyclic column
+            lon_idx, lon = lon_idx[:-1], lon[:-1]
+            notes.append(
+                f"longitude {lon[0] + 360.0:g} repeats {lon[0]:g} (a cyclic column); "
+                "the repeated column was dropped"
+            )
+    if not np.array_equal(lon_idx, np.arange(raw[lon_name].size)):
         isel["lon"] = lon_idx
     if level_order is not None and not np.array_equal(level_order, np.arange(level_order.size)):
         isel["level"] = level_order
@@ -1135,10 +1150,12 @@ def open_fields(
 
 
 def _indexer(order: np.ndarray):
-    """A plain reversal becomes a reversed slice (cheapest for dask); else the index array."""
+    """Reversals and prefixes become slices (cheapest for dask); else the index array."""
     n = order.size
-    if np.array_equal(order, np.arange(n)[::-1]):
-        return slice(None, None, -1)
+    if n and np.array_equal(order, np.arange(order[0], order[0] - n, -1)) and order[-1] == 0:
+        return slice(order[0], None, -1)
+    if n and np.array_equal(order, np.arange(n)):
+        return slice(0, n)
     return order
 
 

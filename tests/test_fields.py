@@ -438,6 +438,7 @@ def test_hybrid_levels_from_bounds(tmp_path, form, bounds_on, ap_units):
     p_top = A_INT[0] * P0 + B_INT[0] * psv
     np.testing.assert_allclose(dp.sum(axis=0), psv - p_top, rtol=1e-13)
     assert np.all(dp > 0)
+    assert "5 hybrid sigma-pressure levels, top interface 10 hPa + 0 ps" in f.describe()
 
 
 @pytest.mark.parametrize("form", ["a", "ap"])
@@ -495,6 +496,14 @@ def test_longitude_frames_kept_and_made_ascending(tmp_path):
         assert f.periodic
         check_levels_formula(f)
     np.testing.assert_allclose(east.ds["u"].sel(lon=210.0).values, west.ds["u"].sel(lon=-150.0).values)
+
+
+@pytest.mark.parametrize("lon", [np.arange(0.0, 360.1, 30.0), np.arange(180.0, -180.1, -30.0)])
+def test_repeated_cyclic_longitude_dropped(tmp_path, lon):
+    f = open_fields(write(make_levels(lon=lon), tmp_path))
+    assert f.lon.size == 12 and f.periodic
+    assert any("cyclic" in w for w in f.warnings)
+    check_levels_formula(f)
 
 
 def test_regional_grid_across_antimeridian_unwrapped(tmp_path):
