@@ -1,0 +1,259 @@
+"""Dry-air mass budget and the barotropic mass correction (budget.mass, budget.closure).
+
+Sources:
+* the method: Trenberth 1991 (J. Climate 4, 707-722), regional form as in CHECKS.md:
+  c = (dry-air import − A dμ/dt) / ∮ μ dl, ΔQ·n = W c;
+* dry-air column mass μ = (1/g)∫(1−q)dp = ps/g − W (hydrostatic; CHECKS.md);
+* global check values: mass of dry air 5.1352e18 kg and mean surface pressure 985.50 hPa
+  (Trenberth and Smith 2005, J. Climate 18, 864-875), with the ~0.5 % caveat of CHECKS.md;
+* perimeter and area of the region: pyproj.Geod on the sphere of CHECKS.md's radius;
+* "over the whole sphere the integral of any divergence is zero" (CHECKS.md, divergence theorem).
+"""
+
+import json
+
+import numpy as np
+import pytest
+import xarray as xr
+from pyproj import Geod
+
+from budget import compute
+from budget.constants import EARTH_RADIUS, STANDARD_GRAVITY
+from budget.errors import RequestError
+from budget.fields import open_fields
+from budget.mass import residual_as_pressure_tendency
+from budget.region import region_from_bbox, region_from_vertices
+from tests import analytic
+
+P_LEVELS = np.array([20000, 30000, 50000, 70000, 85000, 92500, 100000], float)
+TIMES = np.array(["2031-05-01T00", "2031-05-01T06", "2031-05-01T12"], dtype="datetime64[ns]")
+
+
+def levels_dataset(lon, lat, p, u, v, q, ps, times=TIMES):
+    """A CF level dataset: u, v, q on (time, plev, lat, lon), ps on (time, lat, lon)."""
+    d4 = ("time", "plev", "lat", "lon")
+    return xr.Dataset(
+        {
+            "u": (d4, u, {"units": "m s-1", "standard_name": "eastward_wind"}),
+            "v": (d4, v, {"units": "m s-1", "standard_name": "northward_wind"}),
+            "q": (d4, q, {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+            "ps": (("time", "lat", "lon"), ps, {"units": "Pa", "standard_name": "surface_air_pressure"}),
+        },
+        coords={
+            "time": ("time", times),
+            "plev": ("plev", p, {"units": "Pa", "standard_name": "air_pressure"}),
+            "lat": ("lat", lat, {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": ("lon", lon, {"units": "degrees_east", "standard_name": "longitude"}),
+        },
+    )
+
+
+# A regional 1° grid and a box whose edges lie on grid lines, so bilinear interpolation on the
+# boundary uses only the grid line itself.
+LON = np.arange(0.0, 40.0 + 0.5, 1.0)
+LAT = np.arange(10.0, 50.0 + 0.5, 1.0)
+BOX = (10.0, 20.0, 30.0, 40.0)  # W, S, E, N
+C0 = np.array([0.3, 0.5, -0.2])  # m/s: the known spurious outward wind at each time
+
+
+def mass_consistent_fields(c0=None):
+    """Winds that conserve dry-air mass exactly, plus (optionally) a known barotropic error.
+
+    q varies with longitude, u = U(φ, p) / (1 − q) and v = 0, so the dry-air flux
+    (1/g)∫(1−q)u dp depends on latitude only and is zonal: its divergence is zero, while the
+    vapour flux (1/g)∫ q U/(1−q) dp varies with longitude and converges.  ps and q are steady.
+
+    The error δu = c0 (λ − 20)/10, δv = c0 (φ − 30)/10 (vertically uniform) is linear, so it is
+    interpolated exactly, and its outward normal component is c0 on every edge of BOX.
+    """
+    nt, nl = TIMES.size, P_LEVELS.size
+    lam, phi = np.meshgrid(np.radians(LON), np.radians(LAT))
+    s = (P_LEVELS / 1e5)[:, None, None]
+    q = 0.012 * s**3 * (1 + 0.5 * np.sin(2 * lam))[None]
+    U = (10 + 5 * (1 - s)) * np.cos(phi)[None]
+    u = np.broadcast_to(U / (1 - q), (nt, nl) + lam.shape).copy()
+    v = np.zeros_like(u)
+    if c0 is not None:
+        LONg, LATg = np.meshgrid(LON, LAT)
+        u += c0[:, None, None, None] * ((LONg - 20.0) / 10.0)[None, None]
+        v += c0[:, None, None, None] * ((LATg - 30.0) / 10.0)[None, None]
+    q4 = np.broadcast_to(q, u.shape).copy()
+    ps = np.full((nt,) + lam.shape, 101000.0)
+    return open_fields(levels_dataset(LON, LAT, P_LEVELS, u, v, q4, ps))
+
+
+@pytest.fixture(scope="module")
+def clean():
+    return compute(mass_consistent_fields(), region_from_bbox(*BOX))
+
+
+@pytest.fixture(scope="module")
+def corrupted():
+    return compute(mass_consistent_fields(C0), region_from_bbox(*BOX))
+
+
+def test_correction_recovers_the_known_uniform_error(corrupted):
+    # Trenberth 1991, regional form (CHECKS.md): the spurious outward wind c0 is removed by a
+    # correction c = −c0 at every time step.
+    np.testing.assert_allclose(corrupted["mass_correction_speed"].values, -C0, rtol=1e-8)
+    assert corrupted["mass_correction_speed"].attrs["units"] == "m s-1"
+    assert corrupted.attrs["mass_correction"] == "applied"
+
+
+def test_corrected_vapour_budget_equals_the_mass_consistent_one(clean, corrupted):
+    # The vapour flux error of a barotropic wind error is W·δV, so the corrected budget of the
+    # corrupted winds is the budget of the mass-consistent winds (exact for this construction).
+    for name in ("vapour_import", "vapour_convergence", "p_minus_e"):
+        np.testing.assert_allclose(corrupted[name].values, clean[name].values, rtol=1e-8)
+    np.testing.assert_allclose(corrupted["edge_import"].values, clean["edge_import"].values, rtol=1e-8, atol=1e-8 * np.abs(clean["edge_import"].values).max())
+    # and the uncorrected one really was wrong, by the known amount's order
+    err = np.abs(corrupted["p_minus_e_uncorrected"].values - clean["p_minus_e"].values)
+    assert np.all(err > 0.1 * np.abs(clean["p_minus_e"].values))
+    np.testing.assert_allclose(
+        corrupted["p_minus_e"].values - corrupted["p_minus_e_uncorrected"].values,
+        corrupted["mass_correction_convergence"].values, rtol=1e-12)
+
+
+def test_mass_consistent_winds_need_no_correction(clean):
+    # dry-air mass is conserved exactly by construction: residual and correction vanish
+    assert np.all(np.abs(clean["mass_correction_speed"].values) < 1e-9)
+    assert np.all(np.abs(clean["dry_air_residual_pressure"].values) < 1e-6)  # hPa/day
+    np.testing.assert_allclose(clean["p_minus_e"].values, clean["p_minus_e_uncorrected"].values, rtol=1e-9)
+    # a real vapour budget is there to be left alone
+    assert np.all(np.abs(clean["vapour_convergence"].values) * 86400 > 1.0)  # mm/day
+
+
+def test_residual_of_corrupted_winds_is_the_spurious_divergence(corrupted):
+    # residual = dμ/dt − convergence = 0 − (−c0 ∮μ dl)/A; the correction removes exactly that
+    res = corrupted["dry_air_residual"].values
+    assert np.all(np.sign(res) == np.sign(C0))
+    # steady ps and q: the tendency is zero, so the residual is minus the files' convergence
+    np.testing.assert_allclose(corrupted["dry_air_tendency"].values, 0.0, atol=1e-12)
+    np.testing.assert_allclose(-corrupted["dry_air_import"].values / corrupted.attrs["region_area_m2"], res, rtol=1e-9)
+
+
+def test_switching_the_correction_off_keeps_the_files_answer(corrupted):
+    off = compute(mass_consistent_fields(C0), region_from_bbox(*BOX), mass_correction=False)
+    np.testing.assert_allclose(off["p_minus_e"].values, corrupted["p_minus_e_uncorrected"].values, rtol=1e-12)
+    np.testing.assert_allclose(off["vapour_import"].values, corrupted["vapour_import_uncorrected"].values, rtol=1e-12)
+    # the would-be speed and effect are still reported, so the user sees what it would change
+    np.testing.assert_allclose(off["mass_correction_speed"].values, -C0, rtol=1e-8)
+    assert off.attrs["mass_correction"].startswith("not applied")
+    summary = json.loads(off.attrs["closure_summary"])
+    assert summary["mean_mass_correction_speed_m_s"] == pytest.approx(-C0.mean(), rel=1e-6)
+
+
+def test_rising_surface_pressure_gives_the_pressure_tendency_and_inflow():
+    # Calm air, q uniform, ps rising 50 Pa every 6 h: μ = (ps − p_top)/g − W (CHECKS.md) with
+    # W = q (ps − p_top)/g, so the dry-air residual is (1 − q) dps/dt = 0.995 × 2 hPa/day exactly,
+    # and the correction is the inflow that supplies it: c = −(A / L) dμ/dt / μ, with area A and
+    # perimeter L from pyproj.Geod.
+    nt, nl = TIMES.size, P_LEVELS.size
+    shape = (nt, nl, LAT.size, LON.size)
+    ps = (101000.0 + 50.0 * np.arange(nt))[:, None, None] * np.ones((nt, LAT.size, LON.size))
+    q = np.full(shape, 0.005)
+    ds = compute(open_fields(levels_dataset(LON, LAT, P_LEVELS, np.zeros(shape), np.zeros(shape), q, ps)), region_from_bbox(*BOX))
+    np.testing.assert_allclose(ds["dry_air_residual_pressure"].values, 0.995 * 2.0, rtol=1e-9)
+    w, s, e, n = BOX
+    t = np.linspace(0, 1, 2001)
+    lons = np.concatenate([w + (e - w) * t, np.full_like(t, e), e - (e - w) * t, np.full_like(t, w)])
+    lats = np.concatenate([np.full_like(t, s), s + (n - s) * t, np.full_like(t, n), n - (n - s) * t])
+    area, perim = Geod(a=EARTH_RADIUS, f=0).polygon_area_perimeter(lons, lats)
+    mu = ds["dry_air_mass"].values
+    expected = -(area / perim) * (0.995 * 50.0 / 21600.0 / STANDARD_GRAVITY) / mu
+    np.testing.assert_allclose(ds["mass_correction_speed"].values, expected, rtol=1e-4)
+
+
+def test_pressure_tendency_conversion():
+    # 1 kg m-2 s-1 of air = g Pa s-1 (hydrostatic) = g × 86400 / 100 hPa/day
+    assert residual_as_pressure_tendency(1.0) == pytest.approx(9.80665 * 864.0, rel=1e-12)
+
+
+def test_column_inputs_cannot_be_corrected():
+    ds = analytic.column_dataset(2.0, ntime=2)
+    region = region_from_bbox(5, 43, 17, 49)
+    out = compute(open_fields(ds), region)
+    assert "dry_air_residual" not in out and out.attrs["mass_correction"].startswith("not available")
+    with pytest.raises(RequestError, match="mass correction needs winds"):
+        compute(open_fields(ds), region, mass_correction=True)
+
+
+# ----------------------------------------------------------------------------------------
+# the whole globe
+
+
+def global_fields(nt=2):
+    """A global 2° level dataset built to the published mean surface pressure and vapour mass.
+
+    ps = 985.50 hPa + 30 hPa P2(sinφ) + 10 hPa cosφ cosλ: both anomalies average to zero over
+    the sphere (Legendre P2 and a degree-1 harmonic).  q = q0 (p/1e5)^3 cos²φ with q0 chosen for
+    a global mean precipitable water of 24.9 kg m-2 (Trenberth and Smith 2005: 1.27e16 kg of
+    vapour over the sphere).  The winds are arbitrary and divergent.
+    """
+    lon = np.arange(1.0, 360.0, 2.0)
+    lat = np.arange(-89.0, 90.0, 2.0)
+    p = np.array([1.0, 1000, 5000, 10000, 20000, 30000, 50000, 70000, 85000, 92500, 100000, 105000])
+    lam, phi = np.meshgrid(np.radians(lon), np.radians(lat))
+    sphi = np.sin(phi)
+    ps2 = 98550.0 + 3000.0 * 0.5 * (3 * sphi**2 - 1) + 1000.0 * np.cos(phi) * np.cos(lam)
+    # W ≈ q0 cos²φ (ps/1e5)^4 1e5/(4g); mean cos²φ = 2/3 on the sphere
+    q0 = 24.9 / (1e5 / (4 * STANDARD_GRAVITY) * (2 / 3) * (0.9855**4))
+    s = (p / 1e5)[:, None, None]
+    q = q0 * s**3 * np.cos(phi)[None] ** 2
+    u = (10 * np.cos(phi) + 5 * np.sin(2 * lam) * np.cos(phi))[None] * (1 + 0 * s)
+    v = (3 * np.sin(lam) * np.cos(phi))[None] * (1 + 0 * s)
+    times = TIMES[:nt]
+    b = lambda a: np.broadcast_to(a, (nt,) + a.shape).copy()  # noqa: E731
+    return open_fields(levels_dataset(lon, lat, p, b(u), b(v), b(q), b(ps2), times=times))
+
+
+@pytest.fixture(scope="module")
+def globe():
+    return compute(global_fields(), region_from_bbox(-180, -90, 180, 90))
+
+
+def test_global_dry_air_mass_matches_published_value(globe):
+    # Trenberth and Smith 2005: dry air 5.1352e18 kg at a mean surface pressure of 985.50 hPa.
+    # CHECKS.md caveat: ps × area / g0 is ~0.4 % below the published total (gravity and area
+    # change with height), so allow 0.5 %.
+    area = globe.attrs["region_area_m2"]
+    assert area == pytest.approx(4 * np.pi * EARTH_RADIUS**2, rel=1e-9)
+    dry = globe["dry_air_mass"].values[0] * area
+    assert dry == pytest.approx(5.1352e18, rel=5e-3)
+    # and the vapour mass the fields were built to (1.27e16 kg, same source), to the grid's
+    # sampling of the cos² profile
+    assert globe["precipitable_water"].values[0] * area == pytest.approx(1.27e16, rel=2e-2)
+
+
+def test_global_convergence_is_zero_and_no_correction(globe):
+    # CHECKS.md: over the whole sphere the integral of any divergence is zero.  The meridian
+    # edges of the global box coincide and cancel; the area method's sum is zero to its
+    # discretisation, small against the local divergences it sums.
+    assert np.all(np.abs(globe["dry_air_import"].values) < 1e-6 * np.abs(globe["dry_air_mass"].values[0]) * globe.attrs["region_area_m2"])
+    f = global_fields(nt=1)
+    ds = compute(f, region_from_bbox(-180, -90, 180, 90), method="area")
+    conv = ds["dry_air_convergence"].values[0]
+    # scale: the dry-air convergence of a 20°×20° box of the same winds
+    local = compute(f, region_from_bbox(20, -10, 40, 10))["dry_air_convergence"].values[0]
+    assert abs(conv) < 1e-3 * abs(local)
+    np.testing.assert_array_equal(globe["mass_correction_speed"].values, 0.0)
+    assert any("no open boundary" in w for w in json.loads(globe.attrs["warnings"]))
+
+
+def test_irregular_polygon_mass_consistent_solid_body_flow():
+    # Solid-body rotation u = U cosφ, v = 0 is non-divergent on the sphere (∂u/∂λ = 0), and with
+    # q depending on latitude only so is the dry-air flux: the correction is ~0 for any polygon.
+    lon = np.arange(-20.0, 40.5, 0.75)
+    lat = np.arange(20.0, 70.5, 0.75)
+    nt, nl = TIMES.size, P_LEVELS.size
+    lam, phi = np.meshgrid(np.radians(lon), np.radians(lat))
+    s = (P_LEVELS / 1e5)[:, None, None]
+    q = 0.01 * s**3 * np.cos(phi)[None] ** 2
+    u = 15 * np.cos(phi)[None] * (1 + 0.5 * (1 - s))
+    b = lambda a: np.broadcast_to(a, (nt,) + np.broadcast_shapes(a.shape, (nl,) + lam.shape)).copy()  # noqa: E731
+    ps = np.full((nt,) + lam.shape, 100500.0)
+    f = open_fields(levels_dataset(lon, lat, P_LEVELS, b(u), b(0 * u), b(q), ps))
+    ds = compute(f, region_from_vertices([2.0, 14.0, 21.0, 17.5, 9.0, 4.5], [41.0, 38.5, 46.0, 52.0, 49.0, 53.5]))
+    assert np.all(np.abs(ds["mass_correction_speed"].values) < 1e-3)  # m/s
+    scale = np.abs(ds["inflow"].values) / ds.attrs["region_area_m2"]
+    assert np.all(np.abs(ds["mass_correction_convergence"].values) < 1e-3 * scale)
