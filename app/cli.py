@@ -90,6 +90,8 @@ def cmd_run(args) -> int:
         raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
     if args.region and args.bbox:
         raise RequestError("Give either --region or --bbox, not both.")
+    if args.each_feature:
+        return _run_each_feature(args)
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
@@ -109,6 +111,69 @@ def cmd_run(args) -> int:
     if not args.quiet:
         print(_summary(ds))
         print(f"wrote {out}" + (f" and {args.netcdf}" if args.netcdf else ""))
+        print(CAUTION)
+    return 0
+
+
+def _slug(name: str) -> str:
+    import re
+
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("_") or "region"
+
+
+def _run_each_feature(args) -> int:
+    """One budget per feature of a region file: OUT/<name>.csv each, and OUT/summary.csv."""
+    import pandas as pd
+
+    from budget.export import to_frame, write, write_frame
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import list_features, load_region
+    from budget.stencil import Grid, compile_stencil
+
+    if not args.region:
+        raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
+    if args.feature:
+        raise RequestError("Give either --each-feature or --feature, not both.")
+    folder = Path(args.out)
+    if folder.suffix.lower() in (".csv", ".nc"):
+        raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(folder)!r}.")
+    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    grid = Grid.from_fields(fields)
+    # check every region before computing any, so a bad feature costs nothing
+    jobs = []
+    for feat in list_features(args.region):
+        label = feat.get("name") or f"feature {feat['index']}"
+        try:
+            region = load_region(path=args.region, feature=feat["index"], great_circle=args.great_circle, name=label)
+            stencil = compile_stencil(region, grid)
+        except FluxfenceError as exc:
+            raise type(exc)(f"Feature {feat['index']} ({label}): {exc}") from None
+        target = folder / f"{feat['index']:03d}_{_slug(label)}.csv"
+        if target.exists() and not args.overwrite:
+            raise RequestError(f"{str(target)!r} exists already; choose another --out folder or pass --overwrite.")
+        jobs.append((label, region, stencil, target))
+    folder.mkdir(parents=True, exist_ok=True)
+    summary_path = folder / "summary.csv"
+    if summary_path.exists() and not args.overwrite:
+        raise RequestError(f"{str(summary_path)!r} exists already; choose another --out folder or pass --overwrite.")
+    rows = []
+    for k, (label, region, stencil, target) in enumerate(jobs, 1):
+        if not args.quiet:
+            print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
+        ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet))
+        write(ds, target)
+        df = to_frame(ds)
+        row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
+               "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
+        for col in ("precipitable_water_mm", "vapour_convergence_mm_day", "pw_tendency_mm_day", "p_minus_e_mm_day", "p_minus_e_m3_s"):
+            if col in df:
+                row[f"mean_{col}"] = df[col].mean()
+        rows.append(row)
+    write_frame(pd.DataFrame(rows), summary_path)
+    if not args.quiet:
+        print(pd.DataFrame(rows)[["region", "area_km2"] + [c for c in ("mean_p_minus_e_mm_day",) if c in rows[0]]].to_string(index=False))
+        print(f"wrote {len(jobs)} budgets and {summary_path}")
         print(CAUTION)
     return 0
 
@@ -151,6 +216,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
     r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
+    r.add_argument("--each-feature", action="store_true", help="one budget per feature of --region; --out is then a folder")
     r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")

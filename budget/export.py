@@ -110,3 +110,9 @@ def write(ds: xr.Dataset, path) -> Path:
     if suffix in (".nc", ".nc4", ".netcdf"):
         return write_netcdf(ds, path)
     raise RequestError(f"Cannot tell the output format of {str(path)!r}; end the name in .csv or .nc.")
+
+
+def write_frame(df: pd.DataFrame, path) -> Path:
+    """Any table (for example a batch summary) as CSV, written atomically."""
+    text = df.to_csv(index=False, float_format="%.6g", lineterminator="\n")
+    return _atomic_write(path, lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))

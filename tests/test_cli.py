@@ -153,3 +153,37 @@ def test_missing_output_folder(tmp_path, demo):
 def test_csv_column_names_carry_units():
     for name, _, unit in CSV_COLUMNS:
         assert name.endswith(("_mm", "_mm_day", "_kg_s", "_m3_s")) or "_kg_m2" in name or "_m_s" in name or "_hpa" in name, name
+
+
+def _features(path, boxes):
+    feats = [
+        {"type": "Feature", "properties": {"name": name, "note": "invented"},
+         "geometry": {"type": "Polygon", "coordinates": [[[w, s], [e, s], [e, n], [w, n], [w, s]]]}}
+        for name, (w, s, e, n) in boxes.items()
+    ]
+    path.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    return path
+
+
+def test_each_feature_writes_one_budget_per_region_and_a_summary(demo, tmp_path):
+    boxes = {"Invented North": (0, 45, 10, 52), "Invented South/East": (8, 38, 18, 44)}
+    regions = _features(tmp_path / "two.geojson", boxes)
+    out = tmp_path / "batch"
+    r = cli("run", demo / "demo_column.nc", "--region", regions, "--each-feature", "--out", out, "--quiet")
+    assert r.returncode == 0, r.stderr
+    summary = pd.read_csv(out / "summary.csv")
+    assert list(summary["region"]) == list(boxes)
+    for (name, bbox), fname in zip(boxes.items(), summary["file"]):
+        # each file equals the single-region run of the same box
+        one = budget.compute(budget.open_fields(demo / "demo_column.nc"), budget.load_region(bbox=bbox))
+        df = pd.read_csv(out / fname)
+        np.testing.assert_allclose(df["p_minus_e_mm_day"], one["p_minus_e"].values * 86400, rtol=1e-5)
+    assert summary["mean_p_minus_e_mm_day"].notna().all()
+
+
+def test_each_feature_names_the_bad_feature_before_computing(demo, tmp_path):
+    regions = _features(tmp_path / "bad.geojson", {"Inside": (0, 45, 10, 52), "Far away": (100, 10, 110, 20)})
+    out = tmp_path / "batch"
+    msg = _bad(tmp_path, "run", demo / "demo_column.nc", "--region", regions, "--each-feature", "--out", out)
+    assert "Feature 1 (Far away)" in msg
+    assert not out.exists()  # nothing written when one region cannot be computed
