@@ -117,33 +117,57 @@ def _runs(idx: np.ndarray, gap: int) -> list:
     return [(int(idx[a]), int(idx[b - 1]) + 1) for a, b in zip(lo, hi)]
 
 
-def _gather(da: xr.DataArray, rows_u, cols_u, r_pos, c_pos, tslice) -> np.ndarray:
-    """Values of the touched cells: (time, [level,] cell) as float64.
+def _gather(data, rows_u, cols_u, r_pos, c_pos, tslice):
+    """Values of the touched cells, (time, [level,] cell) as float64.
 
-    The touched rows and columns are grouped into runs and each run × run slab is read with
-    plain slices: dask passes slices down to the file reader, so only those cells leave
-    NetCDF/Zarr storage (index arrays would make dask load whole chunks). The reads run on
-    dask's synchronous scheduler: a block is one task of the block runner (budget.stream),
-    locally or on a cluster worker, and must not start a scheduler of its own.
+    ``data`` is a DataArray (one array back) or a Dataset (a dict of arrays back, every
+    variable read in one pass). The touched rows and columns are grouped into runs and each
+    run × run slab is read with plain slices: dask passes slices down to the file reader, so
+    only those cells leave NetCDF/Zarr storage (index arrays would make dask load whole
+    chunks). The reads run on dask's synchronous scheduler: a block is one task of the block
+    runner (budget.stream), locally or on a cluster worker, and must not start a scheduler of
+    its own.
     """
     import dask
 
+    one = isinstance(data, xr.DataArray)
+    ds = data.to_dataset(name="_") if one else data
     rows = np.asarray(rows_u)[r_pos]
     cols = np.asarray(cols_u)[c_pos]
     rr, cr = _runs(np.asarray(rows_u), GATHER_GAP), _runs(np.asarray(cols_u), GATHER_GAP)
     ri = np.searchsorted([a for a, _ in rr], rows, side="right") - 1
     ci = np.searchsorted([a for a, _ in cr], cols, side="right") - 1
-    slabs = [da.isel(time=tslice, lat=slice(r0, r1), lon=slice(c0, c1)) for r0, r1 in rr for c0, c1 in cr]
+    slabs = [ds.isel(time=tslice, lat=slice(r0, r1), lon=slice(c0, c1)) for r0, r1 in rr for c0, c1 in cr]
     slabs = dask.compute(*slabs, scheduler="synchronous")
-    lead = slabs[0].shape[:-2]
-    out = np.empty(lead + (rows.size,), np.float64)
-    for a, (r0, _) in enumerate(rr):
-        for b, (c0, _) in enumerate(cr):
-            sel = np.flatnonzero((ri == a) & (ci == b))
-            if sel.size:
-                vals = np.asarray(slabs[a * len(cr) + b].values)
-                out[..., sel] = vals[..., rows[sel] - r0, cols[sel] - c0]
-    return out
+    out = {}
+    for name in ds.data_vars:
+        lead = slabs[0][name].shape[:-2]
+        arr = np.empty(lead + (rows.size,), np.float64)
+        for a, (r0, _) in enumerate(rr):
+            for b, (c0, _) in enumerate(cr):
+                sel = np.flatnonzero((ri == a) & (ci == b))
+                if sel.size:
+                    vals = np.asarray(slabs[a * len(cr) + b][name].values)
+                    arr[..., sel] = vals[..., rows[sel] - r0, cols[sel] - c0]
+        out[name] = arr
+    return out["_"] if one else out
+
+
+class _Gatherer:
+    """``g(name)``: the touched cells of one variable for one block; the first call reads
+    every gridded variable of the dataset at once (one pass over the files per block)."""
+
+    def __init__(self, ds, rows_u, cols_u, r_pos, c_pos, tslice):
+        self.ds, self.args = ds, (rows_u, cols_u, r_pos, c_pos, tslice)
+        self.cache = None
+
+    def __call__(self, name):
+        if self.cache is None:
+            names = [n for n, v in self.ds.data_vars.items() if {"time", "lat", "lon"} <= set(v.dims)]
+            self.cache = _gather(self.ds[names], *self.args) if names else {}
+        if name in self.cache:
+            return self.cache.pop(name)  # handed over once: the block owns it now
+        return _gather(self.ds[name], *self.args)
 
 
 def _check_finite(name, arr, mask, fields, st, t0):
@@ -165,7 +189,7 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
 
     rows_u, r_pos = np.unique(st.rows, return_inverse=True)
     cols_u, c_pos = np.unique(st.cols, return_inverse=True)
-    g = lambda name: _gather(ds[name], rows_u, cols_u, r_pos, c_pos, tslice)  # noqa: E731
+    g = _Gatherer(ds, rows_u, cols_u, r_pos, c_pos, tslice)
     if fields.kind == "column":
         qu, qv, w = g("qu"), g("qv"), g("w")
         for name, arr in (("qu", qu), ("qv", qv), ("w", w)):
