@@ -45,10 +45,17 @@ __all__ = [
 
 LEVEL_ROLES = ("u", "v", "q", "ps")
 COLUMN_ROLES = ("qu", "qv", "w")
-ALL_ROLES = LEVEL_ROLES + COLUMN_ROLES
+#: Optional roles, read when present (budget.closure): precipitation and evaporation (units,
+#: accumulations and sign handled in budget.observed), cloud liquid / ice mass fractions on
+#: levels, and for column inputs the all-phase water flux and cloud liquid / ice columns.
+OPTIONAL_ROLES = ("precip", "evap", "ql", "qi", "tu", "tv", "wl", "wi")
+ALL_ROLES = LEVEL_ROLES + COLUMN_ROLES + OPTIONAL_ROLES
+_OPTIONAL_FOR = {"levels": ("precip", "evap", "ql", "qi"), "column": ("precip", "evap", "tu", "tv", "wl", "wi")}
+#: Optional roles whose units are read (not converted) here: budget.observed converts them.
+_RAW_UNITS = {"precip", "evap"}
 
 #: Roles that live on levels (need a vertical dimension); the others are 2-D in space.
-_ON_LEVELS = {"u", "v", "q"}
+_ON_LEVELS = {"u", "v", "q", "ql", "qi"}
 
 ROLE_LONG_NAMES = {
     "u": "eastward wind",
@@ -58,6 +65,14 @@ ROLE_LONG_NAMES = {
     "qu": "eastward vertically integrated water vapour flux",
     "qv": "northward vertically integrated water vapour flux",
     "w": "precipitable water (atmosphere mass content of water vapour)",
+    "precip": "precipitation (rate or accumulated amount)",
+    "evap": "evaporation (rate or accumulated amount)",
+    "ql": "mass fraction of cloud liquid water",
+    "qi": "mass fraction of cloud ice",
+    "tu": "eastward vertically integrated water flux, all phases",
+    "tv": "northward vertically integrated water flux, all phases",
+    "wl": "atmosphere mass content of cloud liquid water",
+    "wi": "atmosphere mass content of cloud ice",
 }
 
 #: CF standard names per role (CF standard-name table v83).
@@ -73,6 +88,20 @@ STANDARD_NAMES = {
         "atmosphere_water_vapor_content",
         "lwe_thickness_of_atmosphere_mass_content_of_water_vapor",
     ),
+    "precip": (
+        "precipitation_flux", "lwe_precipitation_rate", "precipitation_amount",
+        "lwe_thickness_of_precipitation_amount",
+    ),
+    "evap": (
+        "water_evapotranspiration_flux", "water_evaporation_flux", "lwe_water_evaporation_rate",
+        "water_evapotranspiration_amount", "water_evaporation_amount",
+    ),
+    "ql": ("mass_fraction_of_cloud_liquid_water_in_air",),
+    "qi": ("mass_fraction_of_cloud_ice_in_air",),
+    "tu": ("eastward_atmosphere_water_transport_across_unit_distance",),
+    "tv": ("northward_atmosphere_water_transport_across_unit_distance",),
+    "wl": ("atmosphere_mass_content_of_cloud_liquid_water",),
+    "wi": ("atmosphere_mass_content_of_cloud_ice",),
 }
 
 #: Common short names per role, tried (exact, case-sensitive) after the standard names.
@@ -93,6 +122,14 @@ SHORT_NAMES = {
         "w", "tcwv", "TCWV", "prw", "pwat", "PWAT", "pr_wtr", "TQV", "tqv", "pw", "PW",
         "precipitable_water", "total_column_water_vapour",
     ),
+    "precip": ("pr", "tp", "precip", "precipitation", "PRECTOT", "PRECTOTCORR", "prate", "mtpr", "avg_tprate"),
+    "evap": ("evspsbl", "e", "evap", "evaporation", "EVAP", "QFX", "mer"),
+    "ql": ("clwc", "clw", "QL", "QC", "ql", "cloud_liquid_water_content"),
+    "qi": ("ciwc", "cli", "QI", "qi", "cloud_ice_water_content"),
+    "tu": ("tu", "total_water_flux_east"),
+    "tv": ("tv", "total_water_flux_north"),
+    "wl": ("tclw", "lwp", "TQL", "wl"),
+    "wi": ("tciw", "iwp", "TQI", "wi"),
 }
 
 _SI = {
@@ -103,6 +140,12 @@ _SI = {
     "qu": "kg m-1 s-1",
     "qv": "kg m-1 s-1",
     "w": "kg m-2",
+    "ql": "kg kg-1",
+    "qi": "kg kg-1",
+    "tu": "kg m-1 s-1",
+    "tv": "kg m-1 s-1",
+    "wl": "kg m-2",
+    "wi": "kg m-2",
 }
 
 # "ms-1" is deliberately not accepted: strictly it reads "per millisecond".  "mb" is the
@@ -141,6 +184,17 @@ UNIT_FACTORS = {
     "qu": _FLUX,
     "qv": _FLUX,
     "w": _COLUMN,
+}
+
+#: The same for the optional roles converted here (precipitation and evaporation are converted
+#: in budget.observed, which tells rates from accumulated amounts).
+OPTIONAL_UNIT_FACTORS = {
+    "ql": _HUMIDITY,
+    "qi": _HUMIDITY,
+    "tu": _FLUX,
+    "tv": _FLUX,
+    "wl": _COLUMN,
+    "wi": _COLUMN,
 }
 
 _EXAMPLE_UNIT = {
@@ -190,6 +244,7 @@ class Fields:
     warnings: list = field(default_factory=list)
     column_ds: xr.Dataset | None = None
     column_roles: dict = field(default_factory=dict)
+    extra_roles: dict = field(default_factory=dict)  # optional roles found (OPTIONAL_ROLES)
 
     def describe(self) -> str:
         """A few lines for command-line summaries."""
@@ -229,6 +284,8 @@ class Fields:
             )
         else:
             lines.append("time: 1 step, no time in the file")
+        if self.extra_roles:
+            lines.append("also: " + ", ".join(f"{r}={s}" for r, s in self.extra_roles.items()))
         if self.column_ds is not None:
             lines.append(
                 "also column fields: "
@@ -628,7 +685,7 @@ def _factor(role: str, src: str, da: xr.DataArray, units: dict, where: str) -> t
             f"Variable '{src}' ({ROLE_LONG_NAMES[role]}) in {where} has no units attribute; "
             f"state its unit with {_units_hint(role)}."
         )
-    table = UNIT_FACTORS[role]
+    table = UNIT_FACTORS[role] if role in UNIT_FACTORS else OPTIONAL_UNIT_FACTORS[role]
     key = _norm_units(raw)
     if key not in table:
         accepted = ", ".join(dict.fromkeys(table))
@@ -970,13 +1027,23 @@ def open_fields(
     if vdim is not None:
         rename[vdim] = "level"
 
-    def canon(role, src):
+    def canon(role, src, keep_units=False):
         da = raw[src]
         for d in list(da.dims):
             if d not in hdims and d != vdim:  # size-1 extra dims (checked above)
                 da = da.isel({d: 0})
         da = da.reset_coords(drop=True)
         da = da.drop_vars([c for c in da.coords], errors="ignore")
+        if keep_units:  # precipitation / evaporation: budget.observed reads units and metadata
+            da = da.rename({k: v for k, v in rename.items() if k in da.dims and k != v})
+            da = da.transpose(*[d for d in ("time", "level", "lat", "lon") if d in da.dims])
+            meta = {k: v for k, v in raw[src].attrs.items() if isinstance(v, (str, int, float, np.integer, np.floating))}
+            given = units.get(role, units.get(src))
+            if given is not None:
+                meta["source_units"], meta["units"] = meta.get("units", ""), str(given)
+            da.attrs = {**meta, "source_name": src}
+            da.name = role
+            return da
         fac, raw_units = _factor(role, src, da, units, where)
         da = da.rename({k: v for k, v in rename.items() if k in da.dims and k != v})
         order = [d for d in ("time", "level", "lat", "lon") if d in da.dims]
@@ -995,6 +1062,9 @@ def open_fields(
         return da
 
     ds = xr.Dataset({r: canon(r, found[r]) for r in roles_needed})
+    extra_roles = _optional_roles(raw, kind, var_map, units, found, hdims, lat_dim, lon_dim, vdim, where, notes)
+    for r, src in extra_roles.items():
+        ds[r] = canon(r, src, keep_units=r in _RAW_UNITS)
     column_ds = None
     column_roles: dict = {}
     if kind == "levels" and column_ok:
@@ -1146,7 +1216,36 @@ def open_fields(
         warnings=notes,
         column_ds=column_ds,
         column_roles=column_roles,
+        extra_roles=extra_roles,
     )
+
+
+def _optional_roles(raw, kind, var_map, units, found, hdims, lat_dim, lon_dim, vdim, where, notes):
+    """{role: variable} of the optional roles present and usable; detected ones that do not fit
+    are left out with a note, mapped ones (var_map) that do not fit raise FieldsError."""
+    roles = _OPTIONAL_FOR[kind]
+    taken = set(found.values())
+    cand = _detect(raw.drop_vars([n for n in taken if n in raw.data_vars]), roles, {r: n for r, n in var_map.items() if r in roles}, hdims, lat_dim, lon_dim)
+    out = {}
+    for role, src in cand.items():
+        try:
+            _check_dims(role, src, raw, hdims, lat_dim, lon_dim, where)
+            if role in _ON_LEVELS:
+                ex = _spatial_extra_dims(raw[src], hdims)
+                if ex[0] != vdim:
+                    raise FieldsError(
+                        f"Variable '{src}' ({ROLE_LONG_NAMES[role]}) in {where} lies on '{ex[0]}', not on "
+                        f"the levels '{vdim}' of the winds; give it on the same levels."
+                    )
+            if role not in _RAW_UNITS:
+                _factor(role, src, raw[src], units, where)
+        except FieldsError as exc:
+            if role in var_map:
+                raise
+            notes.append(f"'{src}' was not used as {ROLE_LONG_NAMES[role]}: {exc}")
+            continue
+        out[role] = src
+    return out
 
 
 def _indexer(order: np.ndarray):
