@@ -562,7 +562,7 @@ def test_accepted_unit_factors_agree_with_pint():
     # (common practice, no source).
     from metpy.units import units as ureg
 
-    si = {"u": "m/s", "v": "m/s", "q": "kg/kg", "ps": "Pa", "qu": "kg/m/s", "qv": "kg/m/s", "w": "kg/m**2"}
+    from budget.fields import _SI as si  # the SI unit of each role, in CF spelling
     # the tables hold lower-cased spellings; give pint the case SI prefixes need
     spelling = {"pa": "Pa", "hpa": "hPa", "kpa": "kPa", "n m-2": "N m-2"}
     checked = 0
@@ -572,7 +572,7 @@ def test_accepted_unit_factors_agree_with_pint():
             if unit == "mb":
                 assert factor == 100.0
                 continue
-            if role == "w" and unit in ("mm", "cm", "m"):
+            if si[role] == "kg m-2" and unit in ("mm", "cm", "m"):
                 expected = ureg.Quantity(1.0, unit).to("m").magnitude * 1000.0
             else:
                 expected = ureg.Quantity(1.0, unit).to(si[role]).magnitude
