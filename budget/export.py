@@ -20,7 +20,8 @@ from .units import convert, kg_m2_to_mm
 
 #: CSV columns after `time`: (column name, Dataset variable, unit key). Unit key "mm" turns
 #: kg m-2 into mm, "kg/s" of a transport stays as it is, the rate units go through
-#: budget.units.convert. Add a term here to export it.
+#: budget.units.convert, "raw" keeps the variable's own units (named in the column). Add a term
+#: here to export it; a variable missing from the Dataset is skipped.
 CSV_COLUMNS = [
     ("precipitable_water_mm", "precipitable_water", "mm"),
     ("vapour_convergence_mm_day", "vapour_convergence", "mm/day"),
@@ -33,6 +34,21 @@ CSV_COLUMNS = [
     ("area_convergence_mm_day", "area_convergence", "mm/day"),
     ("p_minus_e_kg_s", "p_minus_e", "kg/s"),
     ("p_minus_e_m3_s", "p_minus_e", "m3/s"),
+    # closing the budget (budget.closure): level inputs / files with P, E or condensate only
+    ("p_minus_e_uncorrected_mm_day", "p_minus_e_uncorrected", "mm/day"),
+    ("mass_correction_mm_day", "mass_correction_convergence", "mm/day"),
+    ("mass_correction_speed_m_s", "mass_correction_speed", "raw"),
+    ("vapour_import_uncorrected_kg_s", "vapour_import_uncorrected", "transport"),
+    ("dry_air_mass_kg_m2", "dry_air_mass", "raw"),
+    ("dry_air_residual_kg_m2_s", "dry_air_residual", "raw"),
+    ("dry_air_residual_hpa_day", "dry_air_residual_pressure", "raw"),
+    ("precipitation_mm_day", "precipitation", "mm/day"),
+    ("evaporation_mm_day", "evaporation", "mm/day"),
+    ("p_minus_e_observed_mm_day", "p_minus_e_observed", "mm/day"),
+    ("closure_residual_mm_day", "closure_residual", "mm/day"),
+    ("total_water_mm", "total_water_content", "mm"),
+    ("total_water_convergence_mm_day", "total_water_convergence", "mm/day"),
+    ("p_minus_e_total_water_mm_day", "p_minus_e_total_water", "mm/day"),
 ]
 
 
@@ -46,7 +62,7 @@ def to_frame(ds: xr.Dataset) -> pd.DataFrame:
         vals = ds[var].values
         if unit == "mm":
             cols[name] = kg_m2_to_mm(vals)
-        elif unit == "transport":
+        elif unit in ("transport", "raw"):
             cols[name] = np.asarray(vals, float)
         else:
             cols[name] = convert(vals, unit, area)
