@@ -38,18 +38,26 @@ class _Progress:
     def __init__(self, enabled: bool):
         self.enabled = enabled and sys.stderr.isatty()
         self.t0 = time.monotonic()
+        self.base = None  # steps already done at the first call (resumed from a .partial folder)
 
     def __call__(self, done, total):
         if not self.enabled:
             return
+        if self.base is None:
+            self.base, self.t0 = done, time.monotonic()
         el = time.monotonic() - self.t0
-        rate = done / el if el > 0 else 0.0
+        rate = (done - self.base) / el if el > 0 else 0.0
         left = (total - done) / rate if rate > 0 else 0.0
         n = int(30 * done / max(total, 1))
         sys.stderr.write(f"\r[{'#' * n}{'.' * (30 - n)}] {done}/{total} steps  {rate:.1f}/s  {left:.0f} s left ")
         sys.stderr.flush()
         if done >= total:
             sys.stderr.write("\n")
+
+
+def _partial_dir(out: Path) -> Path:
+    """Where finished time blocks wait until the run completes (resume after Ctrl-C)."""
+    return out.with_name(out.name + ".partial")
 
 
 def _summary(ds) -> str:
@@ -99,7 +107,8 @@ def cmd_run(args) -> int:
     fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
     for w in list(fields.warnings) + list(region.warnings):
         print(f"warning: {w}", file=sys.stderr)
-    ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet))
+    ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet),
+                 scheduler=args.scheduler, resume=_partial_dir(out))
     import json
 
     for w in json.loads(ds.attrs.get("warnings", "[]")):
@@ -161,7 +170,8 @@ def _run_each_feature(args) -> int:
     for k, (label, region, stencil, target) in enumerate(jobs, 1):
         if not args.quiet:
             print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
-        ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet))
+        ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet),
+                     scheduler=args.scheduler, resume=_partial_dir(target))
         write(ds, target)
         df = to_frame(ds)
         row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
@@ -227,6 +237,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--netcdf", help="also write the full budget as NetCDF here")
     r.add_argument("--overwrite", action="store_true", help="replace an existing output file")
     r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    r.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="run on this dask.distributed cluster (default: local threads)")
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")
@@ -251,8 +262,11 @@ def main(argv=None) -> int:
     except FluxfenceError as exc:
         print(f"fluxfence: {exc}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("fluxfence: interrupted; no output was written.", file=sys.stderr)
+    except KeyboardInterrupt as exc:
+        from budget.stream import Interrupted
+
+        msg = exc.message() if isinstance(exc, Interrupted) else "interrupted; no output was written."
+        print(f"fluxfence: {msg}", file=sys.stderr)
         return 130
     except Exception as exc:  # a bug, not a user error: say so in one line
         if os.environ.get("FLUXFENCE_DEBUG"):

@@ -75,7 +75,12 @@ class BlockStore:
                     "fields, region, window or options); delete it or give another folder to resume into."
                 )
         else:
-            self.path.mkdir(parents=True, exist_ok=True)
+            try:
+                self.path.mkdir(exist_ok=True)
+            except FileNotFoundError:
+                raise RequestError(
+                    f"The folder {str(self.path.parent)!r} does not exist; create it or write somewhere else."
+                ) from None
             _atomic_write_text(man, json.dumps({"format": _STORE_FORMAT, "key": self.key}))
 
     def _file(self, ts: slice) -> Path:
