@@ -385,5 +385,7 @@ def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pm
         out.attrs.update(cattrs)
         for name in ("vapour_import", "edge_import", "vapour_convergence", "p_minus_e"):
             out[name].attrs["mass_correction"] = cattrs["mass_correction"]
+        for name in ("inflow", "outflow", "boundary_convergence", "area_convergence"):
+            out[name].attrs["mass_correction"] = "not included: from the files' winds"
         out.attrs["warnings"] = json.dumps(json.loads(out.attrs["warnings"]) + list(cwarn))
     return out
