@@ -60,6 +60,16 @@ def _partial_dir(out: Path) -> Path:
     return out.with_name(out.name + ".partial")
 
 
+def _closure_options(args) -> dict:
+    """compute() keywords for closing the budget (budget.closure)."""
+    return {
+        "mass_correction": False if args.no_mass_correction else None,
+        "accumulation_period": args.accumulation_period,
+        "accumulation_reset": args.accumulation_reset,
+        "evaporation_positive": args.evaporation_positive,
+    }
+
+
 def _summary(ds) -> str:
     from budget.export import to_frame
 
@@ -70,6 +80,7 @@ def _summary(ds) -> str:
         ("area", f"{ds.attrs['region_area_m2'] / 1e6:,.0f} km²"),
         ("period", f"{str(t[0])[:16]} .. {str(t[-1])[:16]} UTC ({t.size} steps)"),
         ("method", ds.attrs.get("method", "")),
+        ("mass correction", ds.attrs.get("mass_correction", "")),
     ]
     means = [
         ("precipitable water", "precipitable_water_mm", "mm"),
@@ -79,6 +90,14 @@ def _summary(ds) -> str:
         ("P − E", "p_minus_e_mm_day", "mm/day"),
         ("P − E", "p_minus_e_m3_s", "m³/s"),
         ("net import", "vapour_import_kg_s", "kg/s"),
+        ("P − E uncorrected", "p_minus_e_uncorrected_mm_day", "mm/day"),
+        ("correction effect", "mass_correction_mm_day", "mm/day"),
+        ("correction speed", "mass_correction_speed_m_s", "m/s"),
+        ("dry-air residual", "dry_air_residual_hpa_day", "hPa/day"),
+        ("precipitation", "precipitation_mm_day", "mm/day"),
+        ("evaporation", "evaporation_mm_day", "mm/day"),
+        ("closure residual", "closure_residual_mm_day", "mm/day"),
+        ("total-water P − E", "p_minus_e_total_water_mm_day", "mm/day"),
     ]
     lines = [f"{k:<22}{v}" for k, v in rows]
     lines.append(f"{'mean over the period':<22}")
@@ -108,7 +127,7 @@ def cmd_run(args) -> int:
     for w in list(fields.warnings) + list(region.warnings):
         print(f"warning: {w}", file=sys.stderr)
     ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet),
-                 scheduler=args.scheduler, resume=_partial_dir(out))
+                 scheduler=args.scheduler, resume=_partial_dir(out), **_closure_options(args))
     import json
 
     for w in json.loads(ds.attrs.get("warnings", "[]")):
@@ -171,7 +190,7 @@ def _run_each_feature(args) -> int:
         if not args.quiet:
             print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
         ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet),
-                     scheduler=args.scheduler, resume=_partial_dir(target))
+                     scheduler=args.scheduler, resume=_partial_dir(target), **_closure_options(args))
         write(ds, target)
         df = to_frame(ds)
         row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
@@ -230,7 +249,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")
-    r.add_argument("--var", action="append", metavar="ROLE=NAME", help="take variable NAME for ROLE (u, v, q, ps, qu, qv, w)")
+    r.add_argument("--var", action="append", metavar="ROLE=NAME", help="take variable NAME for ROLE (u, v, q, ps, qu, qv, w; optional precip, evap, ql, qi, tu, tv, wl, wi)")
     r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong")
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")
@@ -238,6 +257,10 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--overwrite", action="store_true", help="replace an existing output file")
     r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     r.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="run on this dask.distributed cluster (default: local threads)")
+    r.add_argument("--no-mass-correction", action="store_true", help="do not apply the barotropic dry-air mass correction (on by default for level inputs; its effect is still reported)")
+    r.add_argument("--accumulation-period", metavar="DURATION", help="accumulated precipitation/evaporation restart every DURATION (1h: each value covers the step before it; 12h; none: never)")
+    r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
+    r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")

@@ -145,13 +145,15 @@ def _mean(x):
     return float(x.mean()) if x.size else float("nan")
 
 
-def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction=None,
+def close(fields, st, times, res, method, tend, bconv, aconv, imp, edge, mass_correction=None,
           accumulation_period=None, accumulation_reset=None, evaporation_positive=None):
     """Corrected budget and closure terms.
 
-    Returns (imp, edge, conv, pme, variables, attrs, warnings): the vapour import, per-edge
-    import and primary convergence after the correction (unchanged when it is off), P − E, the
-    new Dataset variables and attributes, and warnings for the user.
+    Each convergence estimate is corrected with the speed that closes the dry-air budget by the
+    same method (boundary line integral or area divergence); the vapour import and per-edge
+    import with the boundary one.  Returns (imp, edge, bconv, aconv, conv, pme, variables,
+    attrs, warnings): the corrected terms (unchanged when the correction is off), the primary
+    convergence, P − E, the new Dataset variables and attributes, and warnings for the user.
     """
     area = float(st.area)
     have_dry = "mu" in res
@@ -167,9 +169,10 @@ def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction
     summary: dict = {"method": method}
     w_edge = res["w_edge"]
     w_len = w_edge.sum(axis=1)
+    conv = bconv if method == "boundary" else aconv
     imp_u, conv_u, edge_u = imp, conv, edge
     pme_u = conv_u - tend
-    c = np.zeros(times.size)
+    c = c_b = c_a = np.zeros(times.size)
     state = "not available: column inputs carry no dry-air flux"
     if have_dry:
         mu = res["mu"]
@@ -181,7 +184,9 @@ def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction
         mu_len = res["mu_len"]
         if _open_lengths(st).sum() <= 1e-6 * np.sqrt(area):  # no boundary open to the outside
             mu_len = np.zeros_like(mu_len)
-        c = mass.correction_speed(dconv * area, dtend, area, mu_len)
+        c_b = mass.correction_speed(dconv_b * area, dtend, area, mu_len)
+        c_a = mass.correction_speed(dconv_a * area, dtend, area, mu_len)
+        c = c_b if method == "boundary" else c_a
         if not np.all(np.isfinite(dtend)):
             warnings.append("Only one time step: the dry-air tendency is unknown and the mass correction takes it as zero.")
         if not np.any(mu_len > 0):
@@ -206,8 +211,10 @@ def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction
         })
     dconv_v = -c * w_len / area  # change of vapour convergence (and P − E) from the correction
     if mass_correction:
-        imp = imp_u - c * w_len
-        edge = edge_u - c[:, None] * w_edge
+        imp = imp_u - c_b * w_len
+        edge = edge_u - c_b[:, None] * w_edge
+        bconv = bconv - c_b * w_len / area
+        aconv = aconv - c_a * w_len / area
         conv = conv_u + dconv_v
     pme = conv - tend
     if have_dry:
@@ -230,7 +237,7 @@ def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction
         tconv_u = res["timp"] / area if method == "boundary" else -res["tadiv"]
         tcorr = -c * res["tw_len"] / area
         tconv = tconv_u + tcorr if mass_correction else tconv_u
-        timp = res["timp"] - (c * res["tw_len"] if mass_correction else 0.0)
+        timp = res["timp"] - (c_b * res["tw_len"] if mass_correction else 0.0)
         cond = getattr(fields, "extra_roles", {})
         used = ", ".join(f"{r}={cond.get(r, r)}" for r in (*LEVEL_CONDENSATE, *COLUMN_TOTAL, *COLUMN_CONDENSATE) if r in fields.ds)
         variables.update({
@@ -278,4 +285,4 @@ def close(fields, st, times, res, method, tend, conv, imp, edge, mass_correction
         "mass_correction_method": "regional barotropic correction (Trenberth 1991): one uniform outward boundary-normal wind per time step closing the dry-air budget; Delta(Q.n) = W c",
         "closure_summary": json.dumps(summary),
     }
-    return imp, edge, conv, pme, variables, attrs, warnings
+    return imp, edge, bconv, aconv, conv, pme, variables, attrs, warnings

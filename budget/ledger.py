@@ -308,8 +308,8 @@ def compute(
     aconv = -out["adiv"]
     conv = bconv if method == "boundary" else aconv
     pme = conv - tend
-    out["imp"], edge, conv, pme, *closed = closure.close(
-        fields, st, times, res, method, tend, conv, out["imp"], edge, mass_correction,
+    out["imp"], edge, bconv, aconv, conv, pme, *closed = closure.close(
+        fields, st, times, res, method, tend, bconv, aconv, out["imp"], edge, mass_correction,
         accumulation_period, accumulation_reset, evaporation_positive,
     )
     return _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pme, method, density, (curtain, curtain_dp), ds, closed)
@@ -383,9 +383,9 @@ def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pm
         for name, v in cvars.items():
             out[name] = v
         out.attrs.update(cattrs)
-        for name in ("vapour_import", "edge_import", "vapour_convergence", "p_minus_e"):
+        for name in ("vapour_import", "edge_import", "boundary_convergence", "area_convergence", "vapour_convergence", "p_minus_e"):
             out[name].attrs["mass_correction"] = cattrs["mass_correction"]
-        for name in ("inflow", "outflow", "boundary_convergence", "area_convergence"):
+        for name in ("inflow", "outflow"):
             out[name].attrs["mass_correction"] = "not included: from the files' winds"
         out.attrs["warnings"] = json.dumps(json.loads(out.attrs["warnings"]) + list(cwarn))
     return out
