@@ -54,10 +54,14 @@ COLUMN_CONDENSATE = ("wl", "wi")
 # per-cell quantities of one block
 
 
-def level_extras(ds, gather, q, u, v, dp) -> dict:
-    """Dry-air mass and flux, total water and raw P/E on the touched cells (time × cell)."""
+def level_extras(ds, gather, q, u, v, dp, qu, qv, w) -> dict:
+    """Dry-air mass and flux, total water and raw P/E on the touched cells (time × cell).
+
+    ``qu``, ``qv``, ``w`` are the vapour columns already integrated over the same layers, so the
+    dry-air terms cost one layer sum each: (1/g)∫(1−q)x dp = (1/g)∫x dp − (1/g)∫q x dp.
+    """
     out = {}
-    out["mu"], out["fu"], out["fv"] = mass.dry_column(q, u, v, dp, level_axis=1)
+    out["mu"], out["fu"], out["fv"] = mass.dry_column(q, u, v, dp, level_axis=1, vapour=(w, qu, qv))
     cond = [r for r in LEVEL_CONDENSATE if r in ds]
     if cond:
         qt = q + sum(np.nan_to_num(gather(r)) for r in cond)

@@ -205,7 +205,7 @@ def _columns(fields, st: Stencil, ds, tslice, t0, profiles: bool) -> Columns:
     qv = column_integral(q * v, dp, level_axis=1)
     w = column_integral(q, dp, level_axis=1)
     levels = {"qu": q * u, "qv": q * v, "dp": dp} if profiles else None
-    extra = closure.level_extras(ds, g, q, u, v, dp)
+    extra = closure.level_extras(ds, g, q, u, v, dp, qu, qv, w)
     return Columns(qu, qv, w, ps=ps, levels=levels, extra=extra)
 
 
@@ -385,7 +385,8 @@ def _assemble(fields, region, st, times, out, edge, tend, bconv, aconv, conv, pm
         out.attrs.update(cattrs)
         for name in ("vapour_import", "edge_import", "boundary_convergence", "area_convergence", "vapour_convergence", "p_minus_e"):
             out[name].attrs["mass_correction"] = cattrs["mass_correction"]
-        for name in ("inflow", "outflow"):
-            out[name].attrs["mass_correction"] = "not included: from the files' winds"
+        for name in ("inflow", "outflow", "boundary_import_density", "normal_flux_density"):
+            if name in out:
+                out[name].attrs["mass_correction"] = "not included: from the files' winds"
         out.attrs["warnings"] = json.dumps(json.loads(out.attrs["warnings"]) + list(cwarn))
     return out

@@ -56,12 +56,17 @@ from .vertical import column_integral
 _PA_PER_HPA = 100.0
 
 
-def dry_column(q: np.ndarray, u: np.ndarray, v: np.ndarray, dp: np.ndarray, level_axis: int = 1):
+def dry_column(q: np.ndarray, u: np.ndarray, v: np.ndarray, dp: np.ndarray, level_axis: int = 1, vapour=None):
     """Dry-air column mass μ (kg m-2) and mass flux (Fu, Fv) (kg m-1 s-1) from level values.
 
     μ = (1/g) Σ (1 − q_k) Δp_k and F = (1/g) Σ (1 − q_k) V_k Δp_k over the layers above the
     ground (zero-thickness layers, and the values the file holds in them, do not count).
+    ``vapour = (W, Qu, Qv)`` integrated over the same layers saves the products with q.
     """
+    if vapour is not None:
+        w, qu, qv = vapour
+        air = column_integral(np.ones(()), dp, level_axis=level_axis)
+        return air - w, column_integral(u, dp, level_axis=level_axis) - qu, column_integral(v, dp, level_axis=level_axis) - qv
     dry = 1.0 - np.asarray(q, float)
     mu = column_integral(dry, dp, level_axis=level_axis)
     fu = column_integral(dry * u, dp, level_axis=level_axis)

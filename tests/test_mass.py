@@ -342,3 +342,23 @@ def test_command_line_flag_and_summary(tmp_path, capsys):
         assert col in a and col in b
     np.testing.assert_allclose(b["p_minus_e_mm_day"], a["p_minus_e_uncorrected_mm_day"], rtol=1e-5)
     np.testing.assert_allclose(a["p_minus_e_mm_day"] - a["p_minus_e_uncorrected_mm_day"], a["mass_correction_mm_day"], rtol=1e-4, atol=1e-4)
+
+
+def test_dry_column_is_ps_over_g_minus_w():
+    # CHECKS.md: dry-air column mass per area is ps/g − W (here (ps − p_top)/g − W, the column
+    # starting at the top level), for any humidity profile and a surface between levels
+    from budget.mass import dry_column, dry_column_from_surface_pressure
+    from budget.vertical import PressureLevels, column_integral
+
+    rng = np.random.default_rng(7)
+    lv = PressureLevels(P_LEVELS)
+    ps = rng.uniform(80000, 103000, size=(2, 50))
+    dp = np.moveaxis(lv.thickness(ps), 0, 1)  # (time, level, cell)
+    q = rng.uniform(0, 0.02, size=dp.shape)
+    u, v = rng.normal(0, 10, size=dp.shape), rng.normal(0, 10, size=dp.shape)
+    w = column_integral(q, dp, level_axis=1)
+    mu, fu, fv = dry_column(q, u, v, dp)
+    np.testing.assert_allclose(mu, dry_column_from_surface_pressure(ps, w, p_top=P_LEVELS[0]), rtol=1e-12)
+    mu2, fu2, fv2 = dry_column(q, u, v, dp, vapour=(w, column_integral(q * u, dp, level_axis=1), column_integral(q * v, dp, level_axis=1)))
+    for a, b in ((mu, mu2), (fu, fu2), (fv, fv2)):
+        np.testing.assert_allclose(a, b, rtol=1e-10, atol=1e-9)
