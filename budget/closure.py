@@ -10,7 +10,11 @@ The ledger (budget.ledger) calls three hooks, so that everything about closure l
   plus the closure summary attributes.
 
 Methods and their limits are described in budget.mass (dry air, correction) and
-budget.observed (P and E).  Variables (SI; the CSV gives mm/day and hPa/day):
+budget.observed (P and E).  When the correction is applied, ``vapour_import``, ``edge_import``,
+``boundary_convergence``, ``area_convergence``, ``vapour_convergence`` and ``p_minus_e`` are
+corrected (each convergence estimate with the speed that closes the dry-air budget by its own
+method); ``inflow``, ``outflow`` and the boundary profiles stay from the files' winds.  New
+variables (SI; the CSV gives mm/day and hPa/day):
 
 =================================  ==========  =================================================
 dry_air_mass                       kg m-2      area-mean dry-air column mass (1/g)∫(1−q)dp

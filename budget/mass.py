@@ -30,7 +30,7 @@ water with the total-water column content.
 
 Assumptions and limits.
 * The error in the winds is taken to be vertically uniform (barotropic) and uniform along the
-  boundary.  A regional correction has one number per time step: it removes the net mass
+  boundary (for a region of several parts, one speed serves all of them).  A regional correction has one number per time step: it removes the net mass
   imbalance of the region, not a spatially varying error.  Errors that cancel in the regional
   dry-air budget (an inflow error on one side balanced by an outflow error on the other) are
   invisible to it and still bias the vapour budget, because W differs between the two sides.
