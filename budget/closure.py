@@ -164,6 +164,9 @@ def close(fields, st, times, res, method, tend, bconv, aconv, imp, edge, mass_co
     convergence, P − E, the new Dataset variables and attributes, and warnings for the user.
     """
     area = float(st.area)
+    observed.parse_period(accumulation_period)  # a bad request fails even when nothing is accumulated
+    if evaporation_positive is not None:
+        observed.evaporation_sign({}, "", evaporation_positive)
     have_dry = "mu" in res
     if mass_correction is None:
         mass_correction = have_dry
@@ -276,6 +279,11 @@ def close(fields, st, times, res, method, tend, bconv, aconv, imp, edge, mass_co
         warnings += warn
         if r is None:
             continue
+        if not np.all(np.isfinite(res[key])):
+            warnings.append(
+                f"The {name} variable '{src}' has missing values inside the region at "
+                f"{int(np.sum(~np.isfinite(res[key])))} of {times.size} times; its area mean is blank there."
+            )
         rates[role] = r
         variables[name] = _var(r, "kg m-2 s-1", long, **{k: str(v) for k, v in info.items()})
         summary[f"mean_{name}_mm_day"] = _mean(r) * SECONDS_PER_DAY

@@ -254,3 +254,22 @@ def test_column_total_water():
     out = compute(f, region_from_bbox(5, 43, 17, 49))
     np.testing.assert_allclose(out["total_water_import"].values, 1.2 * out["vapour_import"].values, rtol=1e-12)
     np.testing.assert_allclose(out["total_water_content"].values, 1.2 * out["precipitable_water"].values, rtol=1e-12)
+
+
+def test_bad_requests_fail_even_without_surface_water():
+    f = fields_with_surface_water(3, 6)
+    with pytest.raises(RequestError, match="not a positive duration"):
+        compute(f, region_from_bbox(*BOX), accumulation_period="fortnightish")
+    with pytest.raises(RequestError, match="neither 'up' nor 'down'"):
+        compute(f, region_from_bbox(*BOX), evaporation_positive="sideways")
+
+
+def test_missing_precipitation_inside_the_region_is_reported():
+    def gappy(times):
+        vals = np.full(len(times), 3e-5)
+        vals[2] = np.nan
+        return "pr", vals, {"units": "kg m-2 s-1", "standard_name": "precipitation_flux"}
+
+    ds = compute(fields_with_surface_water(5, 6, precip=gappy), region_from_bbox(*BOX))
+    assert np.isnan(ds["precipitation"].values[2]) and np.isfinite(ds["precipitation"].values[[0, 1, 3, 4]]).all()
+    assert any("missing values inside the region" in w for w in json.loads(ds.attrs["warnings"]))
