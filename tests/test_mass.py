@@ -362,3 +362,39 @@ def test_dry_column_is_ps_over_g_minus_w():
     mu2, fu2, fv2 = dry_column(q, u, v, dp, vapour=(w, column_integral(q * u, dp, level_axis=1), column_integral(q * v, dp, level_axis=1)))
     for a, b in ((mu, mu2), (fu, fu2), (fv, fv2)):
         np.testing.assert_allclose(a, b, rtol=1e-10, atol=1e-9)
+
+
+def test_hybrid_levels_dry_air_tendency():
+    # CF hybrid sigma-pressure levels (CF conventions appendix D, formula_terms "ap: ap b: b
+    # ps: ps"): Σ Δp_k = ps − p_top exactly (CHECKS.md), so with q uniform and calm air the
+    # dry-air residual is (1 − q) dps/dt: ps rising 50 Pa per 6 h gives 0.995 × 2 hPa/day.
+    nlev = 6
+    ap_i = np.array([0.0, 2000.0, 6000.0, 8000.0, 5000.0, 1000.0, 0.0])  # Pa, top first
+    b_i = np.array([0.0, 0.0, 0.05, 0.25, 0.6, 0.88, 1.0])
+    ap, b = 0.5 * (ap_i[1:] + ap_i[:-1]), 0.5 * (b_i[1:] + b_i[:-1])
+    nt = TIMES.size
+    shape = (nt, nlev, LAT.size, LON.size)
+    ps = (100000.0 + 50.0 * np.arange(nt))[:, None, None] * np.ones((nt, LAT.size, LON.size))
+    d4 = ("time", "lev", "lat", "lon")
+    ds = xr.Dataset(
+        {
+            "u": (d4, np.zeros(shape), {"units": "m s-1", "standard_name": "eastward_wind"}),
+            "v": (d4, np.zeros(shape), {"units": "m s-1", "standard_name": "northward_wind"}),
+            "q": (d4, np.full(shape, 0.005), {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+            "ps": (("time", "lat", "lon"), ps, {"units": "Pa", "standard_name": "surface_air_pressure"}),
+            "ap": ("lev", ap, {"units": "Pa"}),
+            "b": ("lev", b, {"units": "1"}),
+            "ap_bnds": (("lev", "nb"), np.stack([ap_i[:-1], ap_i[1:]], axis=1), {"units": "Pa"}),
+            "b_bnds": (("lev", "nb"), np.stack([b_i[:-1], b_i[1:]], axis=1)),
+            "lev_bnds": (("lev", "nb"), np.stack([ap_i[:-1] / 1e5 + b_i[:-1], ap_i[1:] / 1e5 + b_i[1:]], axis=1), {"formula_terms": "ap: ap_bnds b: b_bnds ps: ps"}),
+        },
+        coords={
+            "time": ("time", TIMES),
+            "lev": ("lev", ap / 1e5 + b, {"standard_name": "atmosphere_hybrid_sigma_pressure_coordinate", "formula_terms": "ap: ap b: b ps: ps", "bounds": "lev_bnds", "positive": "down"}),
+            "lat": ("lat", LAT, {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": ("lon", LON, {"units": "degrees_east", "standard_name": "longitude"}),
+        },
+    )
+    out = compute(open_fields(ds), region_from_bbox(*BOX))
+    np.testing.assert_allclose(out["dry_air_residual_pressure"].values, 0.995 * 2.0, rtol=1e-9)
+    np.testing.assert_allclose(out["dry_air_mass"].values, 0.995 * ps[:, 0, 0] / STANDARD_GRAVITY, rtol=1e-12)
