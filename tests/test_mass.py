@@ -398,3 +398,27 @@ def test_hybrid_levels_dry_air_tendency():
     out = compute(open_fields(ds), region_from_bbox(*BOX))
     np.testing.assert_allclose(out["dry_air_residual_pressure"].values, 0.995 * 2.0, rtol=1e-9)
     np.testing.assert_allclose(out["dry_air_mass"].values, 0.995 * ps[:, 0, 0] / STANDARD_GRAVITY, rtol=1e-12)
+
+
+def test_converging_air_that_raises_the_surface_pressure_needs_no_correction():
+    # Dry air flowing in through every edge at speed k while ps rises at the matching rate:
+    # A dμ/dt = k ∮μ dl with μ = (1 − q)(ps − p_top)/g uniform, i.e. k = A (dps/dt) / (L (ps − p_top)).
+    # The budget closes, so c ≈ 0 — a wrong sign between tendency and convergence would give 2k.
+    # A and L from pyproj.Geod (independent of the engine's geometry).
+    w, s, e, n = BOX
+    t = np.linspace(0, 1, 2001)
+    lons = np.concatenate([w + (e - w) * t, np.full_like(t, e), e - (e - w) * t, np.full_like(t, w)])
+    lats = np.concatenate([np.full_like(t, s), s + (n - s) * t, np.full_like(t, n), n - (n - s) * t])
+    area, perim = Geod(a=EARTH_RADIUS, f=0).polygon_area_perimeter(lons, lats)
+    nt, nl = TIMES.size, P_LEVELS.size
+    ps_t = 101000.0 + 50.0 * np.arange(nt)
+    k = area * (50.0 / 21600.0) / (perim * (ps_t - P_LEVELS[0]))  # m/s, inward
+    LONg, LATg = np.meshgrid(LON, LAT)
+    shape = (nt, nl, LAT.size, LON.size)
+    u = -k[:, None, None, None] * ((LONg - 20.0) / 10.0)[None, None] * np.ones(shape)
+    v = -k[:, None, None, None] * ((LATg - 30.0) / 10.0)[None, None] * np.ones(shape)
+    ps = ps_t[:, None, None] * np.ones((nt, LAT.size, LON.size))
+    ds = compute(open_fields(levels_dataset(LON, LAT, P_LEVELS, u, v, np.full(shape, 0.005), ps)), region_from_bbox(*BOX))
+    assert np.all(ds["dry_air_convergence"].values > 0)
+    assert np.all(np.abs(ds["mass_correction_speed"].values) < 1e-4 * k)
+    assert np.all(np.abs(ds["dry_air_residual_pressure"].values) < 1e-4 * 2.0)
