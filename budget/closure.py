@@ -137,10 +137,9 @@ def block_sums(st, extra: dict | None, w: np.ndarray) -> dict:
 
 
 def _tendency(values, times):
-    if values.shape[0] < 2:
-        return np.full(values.shape, np.nan)
-    t = (times - times[0]) / np.timedelta64(1, "s")
-    return np.gradient(values, t.astype(float), axis=0)
+    from .ledger import _tendency as tendency  # the one tendency rule of the ledger
+
+    return tendency(values, times)
 
 
 def _var(data, units, long_name, **attrs):
