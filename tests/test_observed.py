@@ -19,7 +19,6 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-import xarray as xr
 
 from budget import compute, observed
 from budget.errors import FieldsError, RequestError
