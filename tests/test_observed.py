@@ -272,3 +272,35 @@ def test_missing_precipitation_inside_the_region_is_reported():
     ds = compute(fields_with_surface_water(5, 6, precip=gappy), region_from_bbox(*BOX))
     assert np.isnan(ds["precipitation"].values[2]) and np.isfinite(ds["precipitation"].values[[0, 1, 3, 4]]).all()
     assert any("missing values inside the region" in w for w in json.loads(ds.attrs["warnings"]))
+
+
+def test_command_line_accumulation_options_and_netcdf(tmp_path, capsys):
+    import xarray as xr
+
+    from app.cli import main
+
+    times = pd.date_range("2031-07-01T00", periods=25, freq="h").values.astype("datetime64[ns]")
+    # ERA5-forecast-like: both accumulate over 12 h from 06 and 18 UTC (one period for all
+    # accumulated variables); 'e' counts evaporation negative (ECMWF)
+    def e12(t):
+        since = seconds(t) - (6 * 3600.0 + (np.ceil((seconds(t) - 6 * 3600.0) / 43200.0) - 1) * 43200.0)
+        return "e", -1.5e-5 * since / 1000.0, {"units": "m of water equivalent"}
+
+    f = fields_with_surface_water(25, 1, precip=lambda t: ("tp", running(t, 12, 6) / 1000.0, {"units": "m"}), evap=e12)
+    src = tmp_path / "in.nc"
+    raw = f.ds.rename({"level": "plev"}).assign_coords(plev=("plev", f.ds["level"].values, {"units": "Pa"}))
+    raw = raw.rename({"precip": "tp", "evap": "e"})
+    raw.to_netcdf(src)
+    out = tmp_path / "b.csv"
+    assert main(["run", str(src), "--bbox", "10,20,30,40", "--out", str(out), "--accumulation-period", "12h",
+                 "--accumulation-reset", "06:00", "--netcdf", str(tmp_path / "b.nc")]) == 0
+    text = capsys.readouterr().out
+    assert "precipitation" in text and "closure residual" in text
+    table = pd.read_csv(out)
+    t = seconds(times)
+    np.testing.assert_allclose(table["precipitation_mm_day"][1:-1], rate(t[1:-1]) * 86400, rtol=1e-5)
+    np.testing.assert_allclose(table["evaporation_mm_day"], 1.5e-5 * 86400, rtol=1e-5)
+    back = xr.open_dataset(tmp_path / "b.nc")
+    assert back["closure_residual"].attrs["units"] == "kg m-2 s-1"
+    assert json.loads(back.attrs["closure_summary"])["mass_correction"] == "applied"
+    back.close()
