@@ -24,6 +24,8 @@ Rates and amounts
   means the accumulation never restarts.  Between two times t₁ < t₂ the increment is
   a(t₂) − a(t₁), or a(t₂) when t₁ is a reset time; the interval's mean rate is the increment
   over t₂ − t₁.  The first value gives a(t₀)/(t₀ − last reset), the mean rate since the reset.
+  One period and reset time serve every accumulated variable of the run (reanalyses
+  accumulate precipitation and evaporation alike).
   The period comes from the caller (``--accumulation-period``) or, failing that, from CF
   ``cell_methods = "time: sum"`` (the value sums its time cell: one time step); with neither
   the amount is left out with a warning, never guessed.
