@@ -60,6 +60,14 @@ def _partial_dir(out: Path) -> Path:
     return out.with_name(out.name + ".partial")
 
 
+#: Closure columns (budget.export) averaged in the per-region summary table.
+_CLOSURE_MEANS = (
+    "p_minus_e_uncorrected_mm_day", "mass_correction_mm_day", "mass_correction_speed_m_s",
+    "dry_air_residual_hpa_day", "precipitation_mm_day", "evaporation_mm_day", "closure_residual_mm_day",
+    "p_minus_e_total_water_mm_day",
+)
+
+
 def _closure_options(args) -> dict:
     """compute() keywords for closing the budget (budget.closure)."""
     return {
@@ -138,6 +146,15 @@ def cmd_run(args) -> int:
         write(ds, args.netcdf)
     if not args.quiet:
         print(_summary(ds))
+    if args.eddies:
+        from budget.eddies import decompose
+
+        split = decompose(fields, region)
+        conv = split["vapour_convergence"].values * 86400
+        print(f"{'period-mean convergence':<22}")
+        for label, value in zip(("total", "mean flow", "transient eddies"), conv):
+            print(f"  {label:<20}{value:>14.4g} mm/day")
+    if not args.quiet:
         print(f"wrote {out}" + (f" and {args.netcdf}" if args.netcdf else ""))
         print(CAUTION)
     return 0
@@ -195,9 +212,11 @@ def _run_each_feature(args) -> int:
         df = to_frame(ds)
         row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
                "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
-        for col in ("precipitable_water_mm", "vapour_convergence_mm_day", "pw_tendency_mm_day", "p_minus_e_mm_day", "p_minus_e_m3_s"):
+        for col in ("precipitable_water_mm", "vapour_convergence_mm_day", "pw_tendency_mm_day", "p_minus_e_mm_day", "p_minus_e_m3_s",
+                    *_CLOSURE_MEANS):
             if col in df:
                 row[f"mean_{col}"] = df[col].mean()
+        row["mass_correction"] = ds.attrs.get("mass_correction", "")
         rows.append(row)
     write_frame(pd.DataFrame(rows), summary_path)
     if not args.quiet:
@@ -245,6 +264,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
     r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
+    r.add_argument("--eddies", action="store_true", help="also split the period-mean import into mean-flow and transient-eddy parts (level inputs)")
     r.add_argument("--each-feature", action="store_true", help="one budget per feature of --region; --out is then a folder")
     r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
     r.add_argument("--start", help="first time (ISO 8601, UTC)")

@@ -187,3 +187,9 @@ def test_each_feature_names_the_bad_feature_before_computing(demo, tmp_path):
     msg = _bad(tmp_path, "run", demo / "demo_column.nc", "--region", regions, "--each-feature", "--out", out)
     assert "Feature 1 (Far away)" in msg
     assert not out.exists()  # nothing written when one region cannot be computed
+
+
+def test_eddies_flag_prints_the_split(demo, tmp_path):
+    r = cli("run", demo / "demo_levels.nc", "--region", demo / "basin.geojson", "--out", tmp_path / "e.csv", "--eddies")
+    assert r.returncode == 0, r.stderr
+    assert "transient eddies" in r.stdout and "mean flow" in r.stdout
