@@ -422,3 +422,28 @@ def test_converging_air_that_raises_the_surface_pressure_needs_no_correction():
     assert np.all(ds["dry_air_convergence"].values > 0)
     assert np.all(np.abs(ds["mass_correction_speed"].values) < 1e-4 * k)
     assert np.all(np.abs(ds["dry_air_residual_pressure"].values) < 1e-4 * 2.0)
+
+
+def test_per_region_summary_carries_the_closure_means(tmp_path):
+    # --each-feature: the summary table has the closure means per region, and each region's
+    # mean dry-air residual equals that of its own single-region run
+    import pandas as pd
+
+    import budget
+    from app.cli import main
+    from sample_fields import ensure_sample
+
+    boxes = {"Invented West": (-5, 40, 5, 50), "Invented East": (8, 38, 18, 48)}
+    feats = [{"type": "Feature", "properties": {"name": k},
+              "geometry": {"type": "Polygon", "coordinates": [[[w, s], [e, s], [e, n], [w, n], [w, s]]]}}
+             for k, (w, s, e, n) in boxes.items()]
+    regions = tmp_path / "two.geojson"
+    regions.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    sample = ensure_sample()
+    assert main(["run", str(sample.levels), "--region", str(regions), "--each-feature", "--out", str(tmp_path / "batch"), "--quiet"]) == 0
+    summary = pd.read_csv(tmp_path / "batch" / "summary.csv")
+    assert (summary["mass_correction"] == "applied").all()
+    for (name, bbox), got in zip(boxes.items(), summary["mean_dry_air_residual_hpa_day"]):
+        one = budget.compute(budget.open_fields(sample.levels), budget.load_region(bbox=bbox))
+        assert got == pytest.approx(float(one["dry_air_residual_pressure"].mean()), rel=1e-5)
+    assert "mean_mass_correction_mm_day" in summary
