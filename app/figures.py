@@ -272,6 +272,7 @@ def map_figure(
                 x=0.0, y=-0.075, showarrow=False, font=dict(size=11, color=MUTED),
                 xanchor="left",
             )
+    regions = list(regions)
     for region in regions:
         active = region.get("id") == active_region
         for i, (rlon, rlat) in enumerate(region.get("rings", [])):
@@ -288,6 +289,19 @@ def map_figure(
                         showlegend=False,
                     )
                 )
+    active = next((r for r in regions if r.get("id") == active_region), None)
+    if active is not None:
+        numbered = [(x, y) for rlon, rlat in active.get("rings", []) for x, y in zip(rlon, rlat)]
+        if 0 < len(numbered):
+            step = max(1, int(math.ceil(len(numbered) / 12)))
+            pts = [(i + 1, p) for i, p in enumerate(numbered)][::step]
+            fig.add_trace(go.Scatter(
+                x=[p[0] for _, p in pts], y=[p[1] for _, p in pts], mode="text",
+                text=[str(i) for i, _ in pts], textposition="top right",
+                textfont=dict(color="#ffffff", size=11, weight="bold", shadow="0px 0px 3px #0f1a20"),
+                hoverinfo="skip",
+                name="vertex numbers", showlegend=False,
+            ))
     if len(vertices):
         vx = [p[0] for p in vertices]
         vy = [p[1] for p in vertices]
@@ -326,24 +340,34 @@ def map_figure(
 # ---------------------------------------------------------------------------------------------
 # Boundary profile and curtain
 # ---------------------------------------------------------------------------------------------
-def _vertex_marks(fig: go.Figure, budget, rows: Sequence[int] = (1,), cols=None) -> None:
+def _vertex_marks(fig: go.Figure, budget) -> None:
+    """Dotted lines at the region's vertices; edge names (a box) or vertex numbers on top.
+
+    Vertex numbers count along the boundary from 1, as on the map's outline of the active
+    region; with many vertices only every k-th is numbered so the labels stay legible.
+    """
     if "vertex_distance" not in budget.coords and "vertex_distance" not in budget:
         return
     vd = np.asarray(budget["vertex_distance"].values, dtype=float) / 1000.0
-    for row in rows:
-        for x in vd:
-            fig.add_vline(x=float(x), line=dict(color=MUTED, width=1, dash="dot"), row=row,
-                          col=1 if cols is None else cols)
-    names = list(budget["edge"].values) if "edge" in budget.coords else []
-    if len(names) and len(vd) >= 2:
-        # edge names between consecutive vertices (the ring closes at the last distance)
+    for x in vd:
+        fig.add_vline(x=float(x), line=dict(color=MUTED, width=1, dash="dot"))
+    names = [str(n) for n in budget["edge"].values] if "edge" in budget.coords else []
+    end = None
+    if "edge_length" in budget.coords and len(vd):
+        end = float(vd[0] + np.sum(budget["edge_length"].values) / 1000.0)
+    elif "piece_distance" in budget.coords:
+        end = float(np.max(budget["piece_distance"].values) / 1000.0)
+    label = dict(showarrow=False, font=dict(size=11, color=MUTED), yanchor="bottom", y=1.0,
+                 yref="paper")
+    if names and len(names) == len(vd) and len(vd) <= 12 and all(len(n) <= 3 for n in names):
+        stops = list(vd) + ([end] if end is not None else [])
         for i, name in enumerate(names):
-            if i + 1 >= len(vd):
-                break
-            fig.add_annotation(
-                x=float((vd[i] + vd[i + 1]) / 2), y=1.0, yref="paper", text=str(name),
-                showarrow=False, font=dict(size=11, color=MUTED), yanchor="bottom",
-            )
+            if i + 1 < len(stops):
+                fig.add_annotation(x=float((stops[i] + stops[i + 1]) / 2), text=name, **label)
+        return
+    step = max(1, int(math.ceil(len(vd) / 12)))
+    for i in range(0, len(vd), step):
+        fig.add_annotation(x=float(vd[i]), text=str(i + 1), **label)
 
 
 def profile_figure(budget, time_index: int) -> go.Figure:
