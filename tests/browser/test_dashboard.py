@@ -135,6 +135,16 @@ def test_typed_box_csv_download_matches_the_command_line(app_page, sample, tmp_p
     np.testing.assert_allclose(a.drop(columns="time").to_numpy(),
                                b.drop(columns="time").to_numpy(), rtol=1e-9)
 
+    # the full budget as NetCDF: every term with its units, the same P − E
+    import xarray as xr
+
+    nc = xr.open_dataset(_download(page, "dl-nc").path(), engine="h5netcdf").load()
+    assert nc["p_minus_e"].attrs["units"] == "kg m-2 s-1"
+    assert nc.attrs["method"] == "boundary"
+    assert "normal_flux_density" in nc and "boundary_import_density" in nc
+    np.testing.assert_allclose(nc["p_minus_e"].values * 86400, b["p_minus_e_mm_day"],
+                               rtol=1e-5)
+
 
 def test_region_outside_the_data_shows_the_engine_message(app_page, sample):
     from budget.errors import FluxfenceError
