@@ -236,7 +236,7 @@ def _run_cluster(func, blocks, todo, scheduler, finished) -> None:
             fut = client.submit(_call_block, fn, blocks[i].start, blocks[i].stop, key=f"fluxfence-block-{tag}-{i}", pure=False)
             index[fut.key] = i
             futures.append(fut)
-        for fut in as_completed(futures):
+        for fut in as_completed(futures, loop=client.loop):
             finished(index[fut.key], fut.result())
     except BaseException:
         if futures:
