@@ -35,10 +35,23 @@ MAX_REGIONS = 30
 MAP_MAX_CELLS = 250_000  # larger grids are thinned for display only
 
 _STATE: dict = {"sources": {}, "cache_dir": None, "assets": None, "upload_limit": 10 * 2**20}
-_LOCK = threading.Lock()
+_LOCKS: dict = {}
+
+
+def _lock() -> threading.Lock:
+    """A lock of this process.  The background job runs in a forked child; a lock inherited
+    from the parent may have been held by another thread at the fork and never released."""
+    pid = os.getpid()
+    lock = _LOCKS.get(pid)
+    if lock is None:
+        lock = _LOCKS.setdefault(pid, threading.Lock())
+    return lock
+
+
 _FIELDS: dict = {}
 _SNAPSHOTS: dict = {}
 _CACHE: dict = {}
+_RANGES: dict = {}
 
 
 def configure(sources, cache_dir, assets, upload_limit) -> None:
@@ -50,6 +63,7 @@ def configure(sources, cache_dir, assets, upload_limit) -> None:
     _FIELDS.clear()
     _SNAPSHOTS.clear()
     _CACHE.clear()
+    _RANGES.clear()
 
 
 # ---------------------------------------------------------------------------------------------
@@ -67,7 +81,7 @@ def _fields(source_id):
     from budget.fields import open_fields
 
     key = (os.getpid(), str(source_id))
-    with _LOCK:
+    with _lock():
         if key not in _FIELDS:
             _FIELDS[key] = open_fields(_source(source_id)["paths"])
         return _FIELDS[key]
@@ -87,7 +101,7 @@ def _snapshot(source_id, time_index: int):
     from budget.maps import column_snapshot
 
     key = (os.getpid(), str(source_id), int(time_index))
-    with _LOCK:
+    with _lock():
         hit = _SNAPSHOTS.get(key)
     if hit is not None:
         return hit
@@ -97,7 +111,7 @@ def _snapshot(source_id, time_index: int):
     if ny * nx > MAP_MAX_CELLS:
         stride = int(np.ceil(np.sqrt(ny * nx / MAP_MAX_CELLS)))
         snap = snap.isel(lat=slice(None, None, stride), lon=slice(None, None, stride))
-    with _LOCK:
+    with _lock():
         if len(_SNAPSHOTS) > 96:
             _SNAPSHOTS.clear()
         _SNAPSHOTS[key] = snap
@@ -519,8 +533,16 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
         snap = _snapshot(source_id, t)
         label = _iso(fields.ds["time"].values[t])
         dragmode = "pan" if tool in ("pan", "click") else tool
+        field = field or "ivt"
+        # colour limits only widen as more time steps are seen, so the scale holds still
+        lo, hi = figures.color_limits(figures.field_values(snap, field), field)
+        rkey = (os.getpid(), str(source_id), field)
+        seen = _RANGES.get(rkey)
+        if seen is not None:
+            lo, hi = min(lo, seen[0]), max(hi, seen[1])
+        _RANGES[rkey] = (lo, hi)
         fig = figures.map_figure(
-            snap, field or "ivt", coastline=_coastline(), regions=regions or [],
+            snap, field, coastline=_coastline(), color_range=(lo, hi), regions=regions or [],
             active_region=selected, vertices=vertices or [], time_label=label,
             arrows=bool(arrows), dragmode=dragmode, uirevision=str(source_id),
         )

@@ -131,6 +131,27 @@ def symmetric_limit(values, quantile: float = 0.99) -> float:
     return limit if limit > 0 else (float(finite.max()) or 1.0)
 
 
+def field_values(snapshot, field: str) -> np.ndarray:
+    """The displayed values of a map field (convergence in mm/day)."""
+    if field == "ivt":
+        return np.asarray(snapshot["ivt"].values, dtype=float)
+    if field == "pw":
+        return np.asarray(snapshot["precipitable_water"].values, dtype=float)
+    return np.asarray(_convert(snapshot["convergence"].values, "mm/day", 1.0), dtype=float)
+
+
+def color_limits(values, field: str) -> tuple[float, float]:
+    """Robust colour limits of one snapshot: 1st–99th percentile, or ±99th of |x| (convergence)."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size == 0:
+        return (0.0, 1.0)
+    if field == "convergence":
+        lim = symmetric_limit(v)
+        return (-lim, lim)
+    return (float(np.quantile(v, 0.01)), float(np.quantile(v, 0.99)))
+
+
 def _arrows(lon, lat, u, v, target: int = 16):
     """Quiver arrows as line segments: subsample to about `target` arrows across the map."""
     lon = np.asarray(lon, dtype=float)
@@ -193,13 +214,16 @@ def map_figure(
     arrows: bool = True,
     dragmode: str = "drawrect",
     uirevision: str = "map",
+    color_range: tuple[float, float] | None = None,
 ) -> go.Figure:
     """The map of one column field at one time.
 
     snapshot: a Dataset on (lat, lon) with ivt_u, ivt_v, ivt, precipitable_water, convergence
     (budget.maps.column_snapshot).  field: "ivt", "pw" or "convergence".  regions: dicts with
     "id", "name" and "rings" (a list of (lon list, lat list) rings, exterior first).  vertices:
-    points clicked so far for a region being built.
+    points clicked so far for a region being built.  color_range: fixed colour limits in
+    the displayed units (so the scale holds still while stepping through time); for
+    convergence only its larger magnitude is used, centred on zero.
     """
     if field not in MAP_FIELDS:
         raise ValueError(f"unknown map field {field!r}")
@@ -212,7 +236,8 @@ def map_figure(
     if field == "ivt":
         z = np.asarray(snapshot["ivt"].values, dtype=float)
         heat = go.Heatmap(
-            x=lon, y=lat, z=z, colorscale=IVT_SCALE, zmin=0, colorbar=colorbar,
+            x=lon, y=lat, z=z, colorscale=IVT_SCALE, zmin=0,
+            zmax=color_range[1] if color_range else None, colorbar=colorbar,
             hovertemplate="%{x:.2f}°E %{y:.2f}°N<br>IVT %{z:.0f} kg m⁻¹ s⁻¹<extra></extra>",
             name="ivt",
         )
@@ -220,12 +245,15 @@ def map_figure(
         z = np.asarray(snapshot["precipitable_water"].values, dtype=float)
         heat = go.Heatmap(
             x=lon, y=lat, z=z, colorscale=PW_SCALE, colorbar=colorbar,
+            zmin=color_range[0] if color_range else None,
+            zmax=color_range[1] if color_range else None,
             hovertemplate="%{x:.2f}°E %{y:.2f}°N<br>PW %{z:.1f} kg m⁻²<extra></extra>",
             name="pw",
         )
     else:
         z = np.asarray(_convert(snapshot["convergence"].values, "mm/day", 1.0), dtype=float)
-        limit = symmetric_limit(z)
+        limit = (max(abs(color_range[0]), abs(color_range[1])) if color_range
+                 else symmetric_limit(z))
         heat = go.Heatmap(
             x=lon, y=lat, z=z, colorscale=CONVERGENCE_SCALE, zmid=0, zmin=-limit, zmax=limit,
             colorbar=colorbar,
@@ -257,7 +285,7 @@ def map_figure(
             name="data extent", showlegend=False,
         )
     )
-    if arrows and field == "ivt":
+    if arrows:
         ax, ay, ref, _ = _arrows(lon, lat, snapshot["ivt_u"].values, snapshot["ivt_v"].values)
         if ax:
             for width, color in ((3.0, "rgba(255,255,255,0.8)"), (1.2, "#1d2733")):
@@ -277,6 +305,12 @@ def map_figure(
         active = region.get("id") == active_region
         for i, (rlon, rlat) in enumerate(region.get("rings", [])):
             for xs, ys in _ring_copies(rlon, rlat, lon_min - 2 * dx, lon_max + 2 * dx):
+                if active:  # a pale halo keeps the outline visible on every colour scale
+                    fig.add_trace(go.Scatter(
+                        x=xs, y=ys, mode="lines", line=dict(color="rgba(255,255,255,0.85)",
+                                                            width=6),
+                        hoverinfo="skip", name="region halo", showlegend=False,
+                    ))
                 fig.add_trace(
                     go.Scatter(
                         x=xs, y=ys, mode="lines+markers" if active else "lines",
@@ -298,7 +332,8 @@ def map_figure(
             fig.add_trace(go.Scatter(
                 x=[p[0] for _, p in pts], y=[p[1] for _, p in pts], mode="text",
                 text=[str(i) for i, _ in pts], textposition="top right",
-                textfont=dict(color="#ffffff", size=11, weight="bold", shadow="0px 0px 3px #0f1a20"),
+                textfont=dict(color="#0f3f44", size=11, weight="bold",
+                              shadow="0px 0px 2px #ffffff, 0px 0px 4px #ffffff"),
                 hoverinfo="skip",
                 name="vertex numbers", showlegend=False,
             ))

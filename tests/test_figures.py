@@ -106,9 +106,11 @@ def test_map_convergence_colour_limits_are_zero_centred_and_in_mm_per_day():
 
 
 def test_map_pw_and_unknown_field():
-    fig = figures.map_figure(_snapshot(), "pw")
+    fig = figures.map_figure(_snapshot(), "pw", arrows=False)
     assert "kg m⁻²" in fig.data[0].colorbar.title.text
     assert not _traces(fig, "transport arrows")
+    # transport arrows can lie over any field (e.g. over convergence)
+    assert _traces(figures.map_figure(_snapshot(), "convergence"), "transport arrows")
     with pytest.raises(ValueError):
         figures.map_figure(_snapshot(), "wind")
 
@@ -202,3 +204,25 @@ def test_period_rows_mean_and_trapezoid_total():
     rate = b["boundary_convergence"].values * 1.2302e12
     assert conv["total_value"] == pytest.approx(np.trapezoid(rate, dx=seconds))
     assert conv["total"].endswith(" kg")
+
+
+def test_fixed_colour_range_is_used_and_convergence_stays_centred():
+    snap = _snapshot()
+    fig = figures.map_figure(snap, "ivt", color_range=(0.0, 500.0))
+    assert fig.data[0].zmax == 500.0
+    fig = figures.map_figure(snap, "convergence", color_range=(-3.0, 7.0))
+    assert (fig.data[0].zmin, fig.data[0].zmax) == (-7.0, 7.0)
+    lo, hi = figures.color_limits(figures.field_values(snap, "convergence"), "convergence")
+    assert lo == -hi > -np.inf
+
+
+def test_profile_numbers_vertices_of_a_many_sided_polygon():
+    b = _budget().drop_vars("vertex_distance")
+    n = 30
+    b = b.assign_coords(vertex_distance=("vertex", np.linspace(0, 900e3, n)),
+                        edge=("edge", [f"edge {i + 1}" for i in range(n)]))
+    fig = figures.profile_figure(b, 0)
+    labels = [a.text for a in fig.layout.annotations]
+    # at most about a dozen labels, numbered along the boundary from 1
+    assert labels[0] == "1" and len(labels) <= 15
+    assert all(t.isdigit() for t in labels)
