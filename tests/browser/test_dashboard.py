@@ -264,3 +264,38 @@ def test_click_vertices_draw_a_shape_switch_back_and_units(app_page):
         ".includes('m³/s')", timeout=10_000)
     in_m3 = np.asarray(_pme_trace(page)["y"], float)
     np.testing.assert_allclose(in_m3, np.asarray(first) / 86400 * area * 1e6 / 1000, rtol=0.02)
+
+
+def test_zipped_shapefile_with_two_features_offers_a_picker(app_page, tmp_path):
+    import zipfile
+
+    import shapefile  # pyshp
+
+    from budget.region import region_from_upload
+
+    base = tmp_path / "two_basins"
+    with shapefile.Writer(str(base), shapeType=shapefile.POLYGON) as w:
+        w.field("name", "C")
+        # shapefile outer rings run clockwise (ESRI shapefile technical description, 1998)
+        w.poly([[[0, 40], [0, 44], [5, 44], [5, 40], [0, 40]]])
+        w.record("west basin")
+        w.poly([[[8, 41], [8, 46], [14, 46], [14, 41], [8, 41]]])
+        w.record("east basin")
+    archive = tmp_path / "two_basins.zip"
+    with zipfile.ZipFile(archive, "w") as z:
+        for ext in ("shp", "shx", "dbf"):
+            z.write(f"{base}.{ext}", f"two_basins.{ext}")
+
+    page = app_page
+    page.click("#adder-upload summary")
+    page.set_input_files("#upload input[type=file]", str(archive))
+    page.wait_for_selector("#feature-row", state="visible", timeout=15_000)
+    assert "holds 2 features" in page.inner_text("#region-message")
+    page.click("#feature")
+    page.get_by_role("option", name="east basin").click()
+    page.click("#feature-use")
+    wait_for_series(page)
+    assert "east basin" in page.inner_text("#region-select")
+    want = region_from_upload("two_basins.zip", archive.read_bytes(), feature=1).area_m2()
+    shown_km2 = float(page.inner_text("#region-info").split(" km²")[0].replace(",", ""))
+    assert shown_km2 == pytest.approx(want / 1e6, abs=1)
