@@ -281,9 +281,10 @@ def test_sample_event_dry_air_budget_matches_its_analytic_budget():
     # budget: F = (1/g)∫(1−q)V dp = V_ref (P0/g)[(1+K)(s_s−s_top) − K(s_s²−s_top²)/2] − Q and
     # μ = (ps − p_top)/g − W, integrated with the module's own Gauss rules.  The engine on the
     # levels file must reproduce it to its discretisation (11 levels, 0.5°, 6-hourly).  The
-    # sample's winds are not mass-consistent: its dry-air residual is −100 to −600 hPa/day,
-    # so the default correction moves the sample's P − E far from its exact vapour budget
-    # (tests comparing with that budget pass mass_correction=False).
+    # sample's column air-mass flux is non-divergent and its ps steady (truth.air_mass_flux),
+    # so its dry air closes but for the vapour lost to P − E, and the default correction barely
+    # moves its P − E (tests comparing with the exact vapour budget still pass
+    # mass_correction=False).
     import budget
     from budget.region import load_region
     from sample_fields import ensure_sample
@@ -316,10 +317,19 @@ def test_sample_event_dry_air_budget_matches_its_analytic_budget():
     sample = ensure_sample()
     ds = budget.compute(budget.open_fields(sample.levels), load_region(path=sample.basin))
     np.testing.assert_allclose(ds["dry_air_mass"].values, exact_mu, rtol=1e-3)
-    np.testing.assert_allclose(ds["dry_air_import"].values, exact_import, rtol=2e-2)
-    peak = np.abs(exact_resid).max()
-    assert np.abs(ds["dry_air_residual"].values - exact_resid).max() < 2e-2 * peak
-    assert np.all(ds["dry_air_residual_pressure"].values < -100.0)  # hPa/day: far from closed
+    # The net dry-air import is a small difference of gross boundary flows of ~1e11 kg/s, so
+    # compare it as hPa/day (× g × 86400 / 100 / area): the 11-level layer sum (up to 0.6 %
+    # high in the air flux where the surface lies between 800 and 700 hPa) and bilinear
+    # interpolation on 0.5° each err by under 1 hPa/day here, 0.6 together (truth.py docstring).
+    hpa_day = g * 86400.0 / 100.0 / T.polygon_area(T.BASIN_LON, T.BASIN_LAT)
+    assert np.abs(ds["dry_air_import"].values - exact_import).max() * hpa_day < 1.0
+    assert np.abs(ds["dry_air_residual_pressure"].values - exact_resid * g * 864.0).max() < 1.0
+    # The exact residual is −dW/dt − ∇·Q = P − E, the vapour the budget removes: g (P − E) is
+    # 0.4-3.4 hPa/day for the basin's 4-35 mm/day.  Adding the discretisation, the engine's
+    # residual stays below 5 hPa/day: nearly closed, the order of real reanalyses' regional
+    # residuals (a few hPa/day, from memory), not the −100 to −600 of the earlier sample.
+    np.testing.assert_allclose(exact_resid, T.exact_budget(T.BASIN_LON, T.BASIN_LAT, t).p_minus_e.values, rtol=1e-6)
+    assert np.all(np.abs(ds["dry_air_residual_pressure"].values) < 5.0)  # hPa/day
 
 
 def test_command_line_flag_and_summary(tmp_path, capsys):
