@@ -2,7 +2,8 @@
 
 Invented demonstration scenario for Fluxfence — not real weather.  The values are samples of
 the closed-form fields in ``sample_fields.truth`` (deterministic: no random numbers), so the
-exact budget of any polygon is known.
+exact budget of any polygon is known; the winds are mass-consistent (non-divergent column
+air-mass flux, steady surface pressure), so the dry air closes but for P − E.
 
 Files written by ``write_sample(out_dir)``:
 
@@ -75,7 +76,9 @@ def _global_attrs(what: str) -> dict:
         "comment": (
             LABEL + ". An atmospheric-river-like moisture plume drifting east across a "
             "mountain ridge over five days, built from closed-form fields "
-            "(sample_fields/truth.py) so that its water-vapour budget is known exactly."
+            "(sample_fields/truth.py) so that its water-vapour budget is known exactly. "
+            "The winds carry a non-divergent column air-mass flux over a steady surface "
+            "pressure, so the dry air closes but for the vapour lost to P - E."
         ),
         "Conventions": "CF-1.8",
         "source": "Fluxfence sample_fields/generate.py (analytic fields, deterministic)",

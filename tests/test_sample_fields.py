@@ -159,6 +159,23 @@ def test_humidity_and_precipitable_water_are_plausible(shipped):
     assert 24.9 / 3 <= float(col.pwat.mean()) <= 24.9 * 3
 
 
+def test_default_mass_correction_barely_changes_the_basin_budget(shipped):
+    # With mass-consistent winds the barotropic correction (Trenberth 1991; budget.mass) only
+    # returns the vapour-loss part of the dry-air residual: c ≈ A (P − E) / ∮μ dl, so it changes
+    # P − E by about (P − E) W/μ (W ≈ 12-27 kg m-2 against μ ≈ 8000 kg m-2: ~0.3 %), plus the
+    # layer-sum and interpolation part (≤ 0.6 hPa/day of dry air, ≈ 0.02 mm/day of vapour).
+    import budget
+
+    paths, _, _ = shipped
+    ds = budget.compute(budget.open_fields(paths.levels), budget.load_region(path=paths.basin))
+    pme = ds["p_minus_e"].values
+    effect = ds["mass_correction_convergence"].values
+    assert ds.attrs["mass_correction"] == "applied"
+    assert np.all(np.abs(effect) < 0.01 * np.abs(pme))
+    assert np.all(np.abs(ds["mass_correction_speed"].values) < 0.02)  # m s-1
+    assert np.all(np.abs(ds["dry_air_residual_pressure"].values) < 5.0)  # hPa/day
+
+
 def test_surface_pressure_exercises_partial_layers(shipped):
     _, lev, _ = shipped
     ps_hpa = lev.ps.values / 100.0
