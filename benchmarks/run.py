@@ -358,7 +358,8 @@ def main(argv=None):
             while fh.read(64 * 2**20):
                 pass
 
-    results = {"steps": nt, "level_steps": nl, "cpu": os.cpu_count(), "regions": {}}
+    results = {"steps": nt, "level_steps": nl, "cpu": os.cpu_count(), "regions": {},
+               "load_before": os.getloadavg()[0]}
     for name in REGIONS:
         print(f"measuring {name} ...", flush=True)
         tool = _child(["tool", path, name, nt])
@@ -370,6 +371,7 @@ def main(argv=None):
     results["levels"] = _child(["levels", lpath, "basin", nl])
     results["dashboard"] = _child(["dashboard"])
     results["total_s"] = time.perf_counter() - t_all
+    results["load_after"] = os.getloadavg()[0]
 
     print_table(results)
     if a.json:
@@ -436,7 +438,8 @@ def print_table(r):
     ]
     for label, ok in checks:
         print(f"  [{'met ' if ok else 'MISS'}] {label}")
-    print(f"benchmark wall time {r['total_s']:.0f} s")
+    print(f"benchmark wall time {r['total_s']:.0f} s; 1-minute load average {r['load_before']:.1f} before, "
+          f"{r['load_after']:.1f} after (above {r['cpu']} means other work shared the cores)")
 
 
 if __name__ == "__main__":
