@@ -47,9 +47,9 @@ class _Progress:
             self.base, self.t0 = done, time.monotonic()
         el = time.monotonic() - self.t0
         rate = (done - self.base) / el if el > 0 else 0.0
-        left = (total - done) / rate if rate > 0 else 0.0
+        left = f"{(total - done) / rate:.0f} s left" if rate > 0 else "starting"
         n = int(30 * done / max(total, 1))
-        sys.stderr.write(f"\r[{'#' * n}{'.' * (30 - n)}] {done}/{total} steps  {rate:.1f}/s  {left:.0f} s left ")
+        sys.stderr.write(f"\r[{'#' * n}{'.' * (30 - n)}] {done}/{total} steps  {rate:.1f}/s  {left} ")
         sys.stderr.flush()
         if done >= total:
             sys.stderr.write("\n")
