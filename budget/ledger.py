@@ -36,7 +36,7 @@ def _time_chunk(ds) -> int | None:
     for v in ds.data_vars.values():
         ch = v.chunks
         if ch and "time" in v.dims:
-            return int(ch[v.dims.index("time")][0])
+            return int(max(ch[v.dims.index("time")]))  # a window may start mid-chunk
     return None
 
 
