@@ -295,3 +295,17 @@ def test_cli_scheduler_flag_runs_on_the_cluster(col40, small_blocks, cluster, tm
     assert cli.main(["run", *common, "--out", str(out_c), "--scheduler", cluster.scheduler_address]) == 0
     assert cli.main(["run", *common, "--out", str(out_l)]) == 0
     pd.testing.assert_frame_equal(pd.read_csv(out_c), pd.read_csv(out_l))
+
+
+def test_interrupted_cluster_run_resumes_to_the_local_result(col40, small_blocks, cluster, tmp_path):
+    region = region_from_vertices(*POLY)
+    fields = open_fields(col40)
+    store = tmp_path / "cluster.partial"
+    with pytest.raises(Interrupted) as info:
+        compute(fields, region, scheduler=cluster.scheduler_address, resume=store, progress=_StopAfter(2))
+    assert 0 < info.value.done < 40
+    kept = len(list(store.glob("block_*.npz")))
+    assert kept * 5 == info.value.done  # what the message says is what is on disk
+    resumed = compute(fields, region, scheduler=cluster.scheduler_address, resume=store)
+    _same(resumed, compute(fields, region, scheduler="sync"))
+    assert not store.exists()
