@@ -151,7 +151,7 @@ def cmd_run(args) -> int:
 
         split = decompose(fields, region)
         conv = split["vapour_convergence"].values * 86400
-        print(f"{'period-mean convergence':<22}")
+        print("period-mean convergence from the files' winds (no mass correction)")
         for label, value in zip(("total", "mean flow", "transient eddies"), conv):
             print(f"  {label:<20}{value:>14.4g} mm/day")
     if not args.quiet:
