@@ -57,6 +57,16 @@ def _block_steps(fields, st, ds, nt: int) -> int:
     return int(max(1, min(nt, cap)))
 
 
+class _Shifted:
+    """``func`` called with block slices moved by ``offset`` steps (picklable for clusters)."""
+
+    def __init__(self, func, offset: int):
+        self.func, self.offset = func, int(offset)
+
+    def __call__(self, ts: slice):
+        return self.func(slice(ts.start + self.offset, ts.stop + self.offset))
+
+
 def _job_key(func, st, ds, region, chunk) -> str:
     """A name of this job for the resume folder: same inputs, region, window and options."""
     from dask.base import tokenize
@@ -294,9 +304,13 @@ def compute(
     nt = times.size
 
     chunk = _block_steps(fields, st, ds, nt)
-    func = partial(_block, fields, st, ds, profiles=profiles)
+    # Blocks read the un-windowed fields at shifted steps: a time window sliced onto the dask
+    # arrays first would stop dask from passing the slab slices down to the file reader (it
+    # then loads whole chunks), and error messages name the true time of a step.
+    offset = int(np.searchsorted(fields.ds["time"].values, times[0])) if nt else 0
+    func = partial(_block, fields, st, fields.ds, profiles=profiles)
     key = _job_key(func, st, ds, region, chunk) if resume is not None else ""
-    blocks = run_blocks(func, nt, chunk, progress=progress, scheduler=scheduler, store=resume, key=key)
+    blocks = run_blocks(_Shifted(func, offset), nt, chunk, progress=progress, scheduler=scheduler, store=resume, key=key)
     res = {k: np.concatenate([b[k] for b in blocks], axis=0) for k in blocks[0]}
     out = {k: res[k] for k in ("w", "imp", "inflow", "outflow", "adiv")}
     edge = res["edge"]
