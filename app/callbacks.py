@@ -17,6 +17,7 @@ import os
 import re
 import tempfile
 import threading
+import time
 import uuid
 from pathlib import Path
 
@@ -54,12 +55,23 @@ _CACHE: dict = {}
 _RANGES: dict = {}
 
 
+CONFIG_ENV = "FLUXFENCE_DASHBOARD_CONFIG"
+
+
 def configure(sources, cache_dir, assets, upload_limit) -> None:
-    """Called by server.create_app: the field sets, the cache folder, the upload cap."""
+    """Called by server.create_app: the field sets, the cache folder, the upload cap.
+
+    The settings are also written to <cache_dir>/dashboard.json, named by an environment
+    variable, so that a background worker (a fresh spawned process) reads the same ones.
+    """
     _STATE["sources"] = {s["id"]: s for s in sources}
     _STATE["cache_dir"] = str(cache_dir)
     _STATE["assets"] = str(assets)
     _STATE["upload_limit"] = int(upload_limit)
+    path = Path(cache_dir) / "dashboard.json"
+    path.write_text(json.dumps({"sources": sources, "cache_dir": str(cache_dir),
+                                "assets": str(assets), "upload_limit": int(upload_limit)}))
+    os.environ[CONFIG_ENV] = str(path)
     _FIELDS.clear()
     _SNAPSHOTS.clear()
     _CACHE.clear()
@@ -69,7 +81,18 @@ def configure(sources, cache_dir, assets, upload_limit) -> None:
 # ---------------------------------------------------------------------------------------------
 # server-side state: opened fields, map snapshots, the result cache
 # ---------------------------------------------------------------------------------------------
+def _ensure_configured() -> None:
+    """In a spawned background worker: load the settings the server wrote."""
+    if _STATE["cache_dir"] is None and os.environ.get(CONFIG_ENV):
+        conf = json.loads(Path(os.environ[CONFIG_ENV]).read_text())
+        _STATE["sources"] = {s["id"]: s for s in conf["sources"]}
+        _STATE["cache_dir"] = conf["cache_dir"]
+        _STATE["assets"] = conf["assets"]
+        _STATE["upload_limit"] = conf["upload_limit"]
+
+
 def _source(source_id):
+    _ensure_configured()
     src = _STATE["sources"].get(str(source_id))
     if src is None:
         raise KeyError("unknown field set")
@@ -90,6 +113,7 @@ def _fields(source_id):
 def _results():
     import diskcache
 
+    _ensure_configured()
     key = os.getpid()
     if key not in _CACHE:
         _CACHE[key] = diskcache.Cache(str(Path(_STATE["cache_dir"]) / "budgets"),
@@ -524,8 +548,9 @@ def play_pause(_n, disabled):
     Input("region-select", "value"),
     Input("vertices", "data"),
     Input("map-tool", "value"),
+    Input("region-message", "children"),  # a refused drawing is cleared from the map
 )
-def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool):
+def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool, _msg):
     try:
         fields = _fields(source_id)
         nt = fields.ds.sizes["time"]
@@ -561,8 +586,22 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
     Input("method", "value"),
     Input("source", "value"),
     Input("regions", "data"),
+    Input("budget-watch", "n_intervals"),
+    State("want", "data"),
 )
-def request_budget(selected, method, source_id, regions):
+def request_budget(selected, method, source_id, regions, _tick, current):
+    cache = _results()
+    if ctx.triggered_id == "budget-watch":
+        # the watchdog: a job that never started or died without a word is submitted again
+        if not current or current["key"] in cache or f"error:{current['key']}" in cache:
+            raise PreventUpdate
+        beat = cache.get(f"alive:{current['key']}")
+        now = time.time()
+        if (beat is not None and now - beat < 10) or now - current.get("submitted", 0) < 8:
+            raise PreventUpdate
+        log.info("budget job for %s did not report; submitting it again", current["name"])
+        again = dict(current, submitted=now)
+        return again, again
     rec = next((r for r in regions or [] if r["id"] == selected), None)
     if rec is None:
         return None, no_update
@@ -571,9 +610,10 @@ def request_budget(selected, method, source_id, regions):
     except KeyError:
         return None, no_update
     want = {"key": key, "source": str(source_id), "method": method, "geojson": rec["geojson"],
-            "name": rec["name"]}
-    if key in _results():
+            "name": rec["name"], "submitted": time.time()}
+    if key in cache:
         return want, no_update
+    cache.delete(f"error:{key}")
     return want, want
 
 
@@ -599,6 +639,14 @@ def run_budget(set_progress, job):
     cache = _results()
     if key in cache:
         return {"key": key, "error": None}
+    stop = threading.Event()
+
+    def heartbeat():  # tells the page's watchdog that this job is alive
+        while not stop.is_set():
+            cache.set(f"alive:{key}", time.time(), expire=60)
+            stop.wait(2.0)
+
+    threading.Thread(target=heartbeat, daemon=True).start()
     try:
         fields = _fields(job["source"])
         region = region_from_geojson(job["geojson"], name=job.get("name"))
@@ -608,7 +656,11 @@ def run_budget(set_progress, job):
         cache.set(key, ds)
         return {"key": key, "error": None}
     except Exception as exc:  # noqa: BLE001
-        return {"key": key, "error": _message(exc, "computing the budget")}
+        message = _message(exc, "computing the budget")
+        cache.set(f"error:{key}", message, expire=3600)
+        return {"key": key, "error": message}
+    finally:
+        stop.set()
 
 
 def _table(rows):
@@ -628,23 +680,35 @@ def _table(rows):
     Output("budget-message", "children"),
     Output("budget-message", "className"),
     Output("period-label", "children"),
+    Output("budget-watch", "disabled"),
     Input("want", "data"),
     Input("done", "data"),
     Input("units", "value"),
     Input("time", "value"),
     Input("period", "value"),
+    Input("budget-watch", "n_intervals"),
 )
-def show_budget(want, done, units, time_index, period):
+def show_budget(want, done, units, time_index, period, _tick):
+    return _show_budget(want, done, units, time_index, period)
+
+
+def _show_budget(want, done, units, time_index, period):
     if not want:
         blank = figures.empty_figure("Draw a region on the map to see its budget.")
-        return blank, blank, blank, None, "", "notice", ""
-    ds = _results().get(want["key"])
+        return blank, blank, blank, None, "", "notice", "", True
+    cache = _results()
+    ds = cache.get(want["key"])
     if ds is None:
-        if done and done.get("key") == want["key"] and done.get("error"):
+        error = cache.get(f"error:{want['key']}")
+        if error is None and done and done.get("key") == want["key"]:
+            error = done.get("error")
+        if error:
             blank = figures.empty_figure("No budget for this region.")
-            return blank, blank, blank, None, done["error"], "notice error", ""
+            return blank, blank, blank, None, error, "notice error", "", True
+        if ctx.triggered_id == "budget-watch":
+            raise PreventUpdate  # still waiting; nothing new to draw
         waiting = figures.empty_figure("Computing the budget…")
-        return waiting, waiting, waiting, no_update, "", "notice", ""
+        return waiting, waiting, waiting, no_update, "", "notice", "", False
     try:
         nt = ds.sizes["time"]
         t = min(max(int(time_index or 0), 0), nt - 1)
@@ -660,10 +724,11 @@ def show_budget(want, done, units, time_index, period):
         warnings = json.loads(ds.attrs.get("warnings", "[]") or "[]")
         if warnings:
             note = "Note: " + " ".join(warnings)
-        return series, profile, curtain, table, note, "notice", label
+        return series, profile, curtain, table, note, "notice", label, True
     except Exception as exc:  # noqa: BLE001
         blank = figures.empty_figure("No budget to show.")
-        return blank, blank, blank, None, _message(exc, "drawing the budget"), "notice error", ""
+        return (blank, blank, blank, None, _message(exc, "drawing the budget"), "notice error",
+                "", True)
 
 
 @callback(

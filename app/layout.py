@@ -217,6 +217,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
         dcc.Store(id="want", data=None),
         dcc.Store(id="job", data=None),
         dcc.Store(id="done", data=None),
+        dcc.Interval(id="budget-watch", interval=2000, disabled=True),
         dcc.Download(id="download-region"),
         dcc.Download(id="download-csv"),
         dcc.Download(id="download-nc"),

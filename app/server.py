@@ -81,10 +81,32 @@ def resolve_sources(paths=None, data_dir=None) -> list[dict]:
     return sources
 
 
+def _spawning_manager(cache):
+    """A DiskcacheManager whose jobs start in a fresh *spawned* process.
+
+    The default forks the threaded web server; a fork taken while another thread holds a
+    lock (SQLite's, HDF5's, a logging handler's) leaves the child waiting on it for ever.
+    A spawned worker starts clean and reads the settings through callbacks.configure.
+    """
+    from dash import DiskcacheManager
+
+    class SpawningDiskcacheManager(DiskcacheManager):
+        def call_job_fn(self, key, job_fn, args, context):
+            from multiprocess import get_context
+
+            process = get_context("spawn").Process(
+                target=job_fn, args=(key, self._make_progress_key(key), args, context),
+                daemon=True,
+            )
+            process.start()
+            return process.pid
+
+    return SpawningDiskcacheManager(cache)
+
+
 def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
     """Build the dashboard for the given fields (the sample event when none are given)."""
     import diskcache
-    from dash import DiskcacheManager
 
     from . import callbacks
     from .layout import build_layout
@@ -94,7 +116,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
         cache_dir = tempfile.mkdtemp(prefix="fluxfence-cache-")
     cache_dir = Path(cache_dir)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    manager = DiskcacheManager(diskcache.Cache(str(cache_dir / "jobs")))
+    manager = _spawning_manager(diskcache.Cache(str(cache_dir / "jobs")))
     callbacks.configure(sources=sources, cache_dir=cache_dir, assets=ASSETS,
                         upload_limit=UPLOAD_LIMIT_BYTES)
 
@@ -120,7 +142,6 @@ def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050) -> None:
     """Start the dashboard and block; debug stays off."""
     logging.basicConfig(level=logging.INFO, format="%(message)s")
     app = create_app(paths=paths, data_dir=data_dir)
-    print(f"Fluxfence dashboard on http://{host}:{port}/  (Ctrl-C to stop)")
     if host not in ("127.0.0.1", "localhost", "::1"):
         print("note: serving beyond this machine; anyone who can reach it can use it.")
     app.run(host=host, port=port, debug=False, dev_tools_hot_reload=False)
