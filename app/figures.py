@@ -30,7 +30,7 @@ PAPER = "#fbfaf7"
 GRID = "#e4e1da"
 ACCENT = "#2a7f86"  # teal: the active region, import
 WARM = "#b5651d"  # warm brown: export / divergence
-REGION_OTHER = "#8a97a3"
+REGION_OTHER = "#3b4a57"
 FONT = "system-ui, -apple-system, 'Segoe UI', 'Noto Sans', 'DejaVu Sans', sans-serif"
 
 # Magnitudes: perceptually uniform sequential scales.  Convergence: a diverging scale,
@@ -305,12 +305,12 @@ def map_figure(
         active = region.get("id") == active_region
         for i, (rlon, rlat) in enumerate(region.get("rings", [])):
             for xs, ys in _ring_copies(rlon, rlat, lon_min - 2 * dx, lon_max + 2 * dx):
-                if active:  # a pale halo keeps the outline visible on every colour scale
-                    fig.add_trace(go.Scatter(
-                        x=xs, y=ys, mode="lines", line=dict(color="rgba(255,255,255,0.85)",
-                                                            width=6),
-                        hoverinfo="skip", name="region halo", showlegend=False,
-                    ))
+                # a pale halo keeps the outline visible on every colour scale
+                fig.add_trace(go.Scatter(
+                    x=xs, y=ys, mode="lines", hoverinfo="skip", name="region halo",
+                    line=dict(color="rgba(255,255,255,0.85)", width=6 if active else 3.5),
+                    showlegend=False,
+                ))
                 fig.add_trace(
                     go.Scatter(
                         x=xs, y=ys, mode="lines+markers" if active else "lines",
@@ -529,6 +529,21 @@ PERIOD_TERMS = [
 ]
 
 
+def number(value: float) -> str:
+    """A readable number: digits grouped in thousands, scientific only when very large/small."""
+    v = float(value)
+    if not math.isfinite(v):
+        return "—"
+    a = abs(v)
+    if a == 0:
+        return "0"
+    if a >= 1e7 or a < 1e-3:
+        return f"{v:.3e}"
+    if a >= 100:
+        return f"{v:,.0f}"
+    return f"{v:.3g}" if a < 1 else f"{v:.2f}" if a < 10 else f"{v:.1f}"
+
+
 def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None = None):
     """Means and totals of each rate over time steps start..end (inclusive).
 
@@ -554,8 +569,8 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
         total = float(np.trapezoid(rate, seconds / base)) if rate.size > 1 else 0.0
         rows.append({
             "term": label,
-            "mean": f"{mean:.4g} {UNIT_LABELS[units]}",
-            "total": f"{total:.4g} {total_unit}",
+            "mean": f"{number(mean)} {UNIT_LABELS[units]}",
+            "total": f"{number(total)} {total_unit}",
             "mean_value": mean,
             "total_value": total,
         })

@@ -226,3 +226,11 @@ def test_profile_numbers_vertices_of_a_many_sided_polygon():
     # at most about a dozen labels, numbered along the boundary from 1
     assert labels[0] == "1" and len(labels) <= 15
     assert all(t.isdigit() for t in labels)
+
+
+def test_numbers_for_the_table_are_readable():
+    assert figures.number(12570.4) == "12,570"
+    assert figures.number(6.4412) == "6.44"
+    assert figures.number(0.1402) == "0.14"
+    assert figures.number(5.302e9) == "5.302e+09"
+    assert figures.number(float("nan")) == "—"

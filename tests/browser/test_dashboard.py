@@ -107,8 +107,16 @@ def test_upload_geojson_and_an_invalid_one_shows_the_engine_message(app_page, sa
     message = page.inner_text("#region-message")
     assert message.strip() == str(caught.value)
     assert "Traceback" not in page.content()
-    # the basin is still the active region
+    # the basin is still the active region; give it a name of our own
     assert "Invented basin" in page.inner_text("#region-select")
+    page.fill("#region-name", "Upper valley")
+    page.click("#region-rename")
+    page.wait_for_function(
+        "document.querySelector('#region-select').textContent.includes('Upper valley')",
+        timeout=10_000)
+    download = _download(page, "dl-region")
+    feature = json.loads(open(download.path(), encoding="utf-8").read())["features"][0]
+    assert feature["properties"]["name"] == "Upper valley"
 
 
 def test_typed_box_csv_download_matches_the_command_line(app_page, sample, tmp_path):
