@@ -441,13 +441,20 @@ def _open(paths, chunks) -> tuple[xr.Dataset, list[str]]:
                 "complete Zarr store."
             ) from None
         return ds, files
+    deferred = chunks is None and len(files) == 1
     if chunks is None:
         chunks = _time_chunks(files[0])
     if len(files) == 1:
         try:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
-                ds = xr.open_dataset(files[0], chunks=chunks)
+                # Without dask first: xarray composes every later isel (orientation, time
+                # window) into one lazy read, and open_fields chunks at the end. Chunking here
+                # would put those isel as extra layers on the dask arrays, and dask then
+                # loads whole chunks instead of the few cells a region reads.
+                ds = xr.open_dataset(files[0], chunks=None if deferred else chunks)
+                if deferred:
+                    ds.encoding["fluxfence_chunks"] = dict(chunks)
         except Exception as exc:  # noqa: BLE001
             raise FieldsError(
                 f"Cannot read '{files[0]}' as NetCDF ({_short(exc)}); check that it is a "
@@ -914,6 +921,9 @@ def open_fields(
             f"{', '.join(ALL_ROLES)} (e.g. --var q=hus)."
         )
     raw, files = _open(paths, chunks)
+    # lazy, not yet dask: chunk (and convert units) after orientation and windows (see _open)
+    deferred = raw.encoding.get("fluxfence_chunks")
+    factors: dict = {}
     where = _where(files)
     for role, name in var_map.items():
         if name not in raw.variables or name in raw.dims:
@@ -1049,7 +1059,10 @@ def open_fields(
         order = [d for d in ("time", "level", "lat", "lon") if d in da.dims]
         da = da.transpose(*order)
         if fac != 1.0:
-            da = da * fac
+            if deferred is not None:
+                factors[role] = fac  # applied once chunked (arithmetic would load the data)
+            else:
+                da = da * fac
         da.attrs = {
             "units": _SI[role],
             "long_name": ROLE_LONG_NAMES[role],
@@ -1141,6 +1154,9 @@ def open_fields(
         tvals = pd.DatetimeIndex([pd.Timestamp(t0) if t0 is not None else pd.NaT]).as_unit("ns")
         if t0 is None:
             notes.append("the input has no time; it was given one time step with no date")
+        if deferred is not None:
+            ds, column_ds = _chunk_deferred(ds, {}, factors), _chunk_deferred(column_ds, {}, factors)
+            deferred = None
         ds = ds.expand_dims(time=tvals)
         if column_ds is not None:
             column_ds = column_ds.expand_dims(time=tvals)
@@ -1186,10 +1202,16 @@ def open_fields(
                 "inside that range."
             )
         idx = np.nonzero(sel)[0]
+        idx = slice(int(idx[0]), int(idx[-1]) + 1) if np.all(np.diff(idx) == 1) else idx
         ds = ds.isel(time=idx)
         if column_ds is not None:
             column_ds = column_ds.isel(time=idx)
         times = times[idx]
+
+    if deferred is not None:
+        n = next(iter(deferred.values()), None)
+        tchunks = {"time": int(n)} if n and "time" in ds.dims else {}
+        ds, column_ds = _chunk_deferred(ds, tchunks, factors), _chunk_deferred(column_ds, tchunks, factors)
 
     ds.attrs = {
         "kind": kind,
@@ -1290,6 +1312,19 @@ def _check_dims(role, name, raw, hdims, lat_dim, lon_dim, where, time_dim=None):
             f"extra dimension '{extra[0]}' of size {var.sizes[extra[0]]}; it must be a 2-D "
             f"field in time (name another variable with {_var_hint(role)})."
         )
+
+
+def _chunk_deferred(d: xr.Dataset | None, chunks: dict, factors: dict) -> xr.Dataset | None:
+    """Dask-chunk a lazily opened canonical dataset and apply the deferred unit factors."""
+    if d is None:
+        return None
+    attrs = {r: dict(d[r].attrs) for r in d.data_vars}
+    d = d.chunk({k: v for k, v in chunks.items() if k in d.dims} or {})
+    for r, fac in factors.items():
+        if r in d:
+            d[r] = d[r] * fac
+            d[r].attrs = attrs[r]
+    return d
 
 
 def _parse_time(value, what: str):
