@@ -9,6 +9,7 @@ difference measures the discretisation uncertainty.
 from __future__ import annotations
 
 import json
+import os
 from dataclasses import dataclass
 from functools import partial
 
@@ -72,8 +73,19 @@ def _job_key(func, st, ds, region, chunk) -> str:
     from dask.base import tokenize
 
     geo = region.to_geojson() if hasattr(region, "to_geojson") else None
+    files = [str(f) for f in getattr(func.args[0], "files", [])]
+    if files and all(os.path.exists(f) for f in files):
+        # inputs from files: their names, sizes and times, and what was read from them (dask
+        # names of lazily opened files change from one process to the next)
+        source = (
+            [(f, os.path.getsize(f), os.path.getmtime(f)) for f in files],
+            [(n, v.dims, v.shape, str(v.dtype), sorted((k, str(a)) for k, a in v.attrs.items())) for n, v in ds.data_vars.items()],
+            ds["time"].values,
+        )
+    else:
+        source = ds  # data in memory: its values
     return tokenize(
-        ds, json.dumps(geo, sort_keys=True, default=str), int(chunk), repr(sorted(func.keywords.items())),
+        source, json.dumps(geo, sort_keys=True, default=str), int(chunk), repr(sorted(func.keywords.items())),
         st.touched, st.cover, st.bu.data, st.bv.data, st.div_u, st.div_v,
     )
 
