@@ -318,3 +318,36 @@ def test_interrupted_cluster_run_resumes_to_the_local_result(col40, small_blocks
     resumed = compute(fields, region, scheduler=cluster.scheduler_address, resume=store)
     _same(resumed, compute(fields, region, scheduler="sync"))
     assert not store.exists()
+
+
+def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tmp_path, monkeypatch):
+    # Reanalysis files often store latitude north to south, and the command line passes
+    # --start/--end to open_fields: neither may make a block read whole chunks.
+    from xarray.backends import netCDF4_
+
+    path = tmp_path / "desc.nc"
+    write_column_file(tmp_path / "asc.nc", 12, res=0.25, time_chunk=12)
+    with xr.open_dataset(tmp_path / "asc.nc") as asc:
+        d = asc.load().isel(lat=slice(None, None, -1))
+    d.to_netcdf(path, encoding={v: {"chunksizes": (12, d.sizes["lat"], d.sizes["lon"])} for v in ("qu", "qv", "w")})
+    region = region_from_vertices(*POLY)
+    t = d["time"].values
+    fields = open_fields(path, start=str(t[2]), end=str(t[9]))
+    reads = []
+    real = netCDF4_.NetCDF4ArrayWrapper._getitem
+
+    def recording(self, key):
+        out = real(self, key)
+        reads.append(np.size(out))
+        return out
+
+    monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+    got = compute(fields, region, scheduler="sync")
+    st = ledger.compile_stencil(region, ledger.Grid.from_fields(fields))
+    box = 8 * (np.ptp(st.rows) + 1) * (np.ptp(st.cols) + 1)  # 8 steps in the window
+    chunk = 12 * d.sizes["lat"] * d.sizes["lon"]
+    assert box < chunk / 10
+    assert len(reads) == 3 and max(reads) <= box, (reads, box, chunk)
+    # and the same numbers as the ascending file without a window
+    ref = compute(open_fields(tmp_path / "asc.nc"), region, scheduler="sync")
+    np.testing.assert_allclose(got["vapour_import"].values, ref["vapour_import"].values[2:10], rtol=1e-12)
