@@ -663,13 +663,23 @@ def run_budget(set_progress, job):
         stop.set()
 
 
-def _table(rows):
+def _table(rows, edges=()):
     head = html.Thead(html.Tr([html.Th("over the period"), html.Th("mean"), html.Th("total")]))
     body = html.Tbody([
         html.Tr([html.Td(r["term"]), html.Td(r["mean"], className="num"),
                  html.Td(r["total"], className="num")]) for r in rows
     ])
-    return html.Table([head, body], className="totals")
+    out = [html.Table([head, body], className="totals")]
+    if edges:
+        ehead = html.Thead(html.Tr([html.Th("through each edge"), html.Th("mean import"),
+                                    html.Th("")]))
+        ebody = html.Tbody([
+            html.Tr([html.Td(e["edge"]), html.Td(e["mean"], className="num"),
+                     html.Td("coming in" if e["direction"] == "in" else "going out",
+                             className=f"dir {e['direction']}")]) for e in edges
+        ])
+        out.append(html.Table([ehead, ebody], className="totals edges"))
+    return html.Div(out)
 
 
 @callback(
@@ -718,7 +728,7 @@ def _show_budget(want, done, units, time_index, period):
         series = figures.series_figure(ds, units, time_index=t)
         profile = figures.profile_figure(ds, t)
         curtain = figures.curtain_figure(ds, t)
-        table = _table(figures.period_rows(ds, units, lo, hi))
+        table = _table(figures.period_rows(ds, units, lo, hi), figures.edge_rows(ds, lo, hi))
         label = f"{_iso(times[lo])} → {_iso(times[hi])}"
         note = ""
         warnings = json.loads(ds.attrs.get("warnings", "[]") or "[]")

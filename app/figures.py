@@ -592,3 +592,25 @@ def empty_figure(text: str) -> go.Figure:
                        font=dict(color=MUTED, size=13))
     _base_layout(fig, xaxis=dict(visible=False), yaxis=dict(visible=False))
     return fig
+
+
+def edge_rows(budget, start: int = 0, end: int | None = None, limit: int = 12):
+    """Mean import through each edge over steps start..end (kg/s; positive = coming in).
+
+    With more than `limit` edges only the largest magnitudes are listed.  Returns dicts with
+    edge, mean (text), mean_value (kg/s) and direction ("in" / "out").
+    """
+    if "edge_import" not in budget:
+        return []
+    n = budget.sizes["time"]
+    end = n - 1 if end is None else min(end, n - 1)
+    start = max(0, min(start, end))
+    values = np.asarray(budget["edge_import"].values[start:end + 1], float).mean(axis=0)
+    names = [str(e) for e in budget["edge"].values]
+    order = list(range(len(names)))
+    if len(order) > limit:
+        order = sorted(order, key=lambda i: -abs(values[i]))[:limit]
+        order.sort()
+    return [{"edge": names[i], "mean_value": float(values[i]),
+             "mean": f"{number(values[i])} kg/s",
+             "direction": "in" if values[i] > 0 else "out"} for i in order]
