@@ -728,7 +728,7 @@ def _show_budget(want, done, units, time_index, period):
         series = figures.series_figure(ds, units, time_index=t)
         profile = figures.profile_figure(ds, t)
         curtain = figures.curtain_figure(ds, t)
-        table = _table(figures.period_rows(ds, units, lo, hi), figures.edge_rows(ds, lo, hi))
+        table = _table(figures.period_rows(ds, units, lo, hi), figures.edge_rows(ds, units, lo, hi))
         label = f"{_iso(times[lo])} → {_iso(times[hi])}"
         note = ""
         warnings = json.loads(ds.attrs.get("warnings", "[]") or "[]")

@@ -537,7 +537,7 @@ def number(value: float) -> str:
     a = abs(v)
     if a == 0:
         return "0"
-    if a >= 1e7 or a < 1e-3:
+    if a >= 1e10 or a < 1e-3:
         return f"{v:.3e}"
     if a >= 100:
         return f"{v:,.0f}"
@@ -594,23 +594,32 @@ def empty_figure(text: str) -> go.Figure:
     return fig
 
 
-def edge_rows(budget, start: int = 0, end: int | None = None, limit: int = 12):
-    """Mean import through each edge over steps start..end (kg/s; positive = coming in).
+def edge_rows(budget, units: str = "kg/s", start: int = 0, end: int | None = None,
+              limit: int = 8):
+    """Mean import through each edge over steps start..end (positive = coming in).
 
+    `units` as for the series: kg/s and m³/s are the transport itself; mm/day is the
+    transport spread over the region's area (what this edge alone adds to the convergence).
     With more than `limit` edges only the largest magnitudes are listed.  Returns dicts with
-    edge, mean (text), mean_value (kg/s) and direction ("in" / "out").
+    edge, mean (text), mean_value (in `units`) and direction ("in" / "out").
     """
+    from budget.units import transport_to_rate
+
+    if units not in UNIT_LABELS:
+        raise ValueError(f"unknown units {units!r}")
     if "edge_import" not in budget:
         return []
     n = budget.sizes["time"]
     end = n - 1 if end is None else min(end, n - 1)
     start = max(0, min(start, end))
-    values = np.asarray(budget["edge_import"].values[start:end + 1], float).mean(axis=0)
+    kg_s = np.asarray(budget["edge_import"].values[start:end + 1], float).mean(axis=0)
+    area = float(budget.attrs["region_area_m2"])
+    values = np.asarray(_convert(transport_to_rate(kg_s, area), units, area), float)
     names = [str(e) for e in budget["edge"].values]
     order = list(range(len(names)))
     if len(order) > limit:
         order = sorted(order, key=lambda i: -abs(values[i]))[:limit]
         order.sort()
     return [{"edge": names[i], "mean_value": float(values[i]),
-             "mean": f"{number(values[i])} kg/s",
+             "mean": f"{number(values[i])} {UNIT_LABELS[units]}",
              "direction": "in" if values[i] > 0 else "out"} for i in order]

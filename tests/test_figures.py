@@ -232,16 +232,20 @@ def test_numbers_for_the_table_are_readable():
     assert figures.number(12570.4) == "12,570"
     assert figures.number(6.4412) == "6.44"
     assert figures.number(0.1402) == "0.14"
-    assert figures.number(5.302e9) == "5.302e+09"
+    assert figures.number(5.302e9) == "5,302,000,000"
+    assert figures.number(5.302e12) == "5.302e+12"
     assert figures.number(float("nan")) == "—"
 
 
 def test_edge_rows_mean_import_and_largest_first_for_many_edges():
     b = _budget(nt=3)
     b["edge_import"] = (("time", "edge"), np.array([[1.0, -2.0, 3.0, 0.5]] * 3) * 1e7)
-    rows = figures.edge_rows(b)
+    rows = figures.edge_rows(b, "kg/s")
     assert [r["edge"] for r in rows] == ["S", "E", "N", "W"]
     assert rows[1]["mean_value"] == pytest.approx(-2e7) and rows[1]["direction"] == "out"
-    assert rows[2]["mean"] == "3.000e+07 kg/s"
-    few = figures.edge_rows(b, limit=2)
+    assert rows[2]["mean"] == "30,000,000 kg/s"
+    # in mm/day: the transport over the area × 86400 (CHECKS.md, conversions)
+    mm = figures.edge_rows(b, "mm/day")
+    assert mm[2]["mean_value"] == pytest.approx(3e7 / 1.2302e12 * 86400)
+    few = figures.edge_rows(b, "kg/s", limit=2)
     assert [r["edge"] for r in few] == ["E", "N"]  # the two largest, in boundary order
