@@ -24,8 +24,8 @@ from .stream import run_blocks
 
 METHODS = ("boundary", "area")
 
-#: Bytes one block of time steps may hold in memory (touched cells × levels × variables as
-#: float64, with the temporaries of the column integrals); a block runs per worker thread.
+#: Bytes all blocks in flight may hold in memory together (touched cells × levels × variables
+#: as float64, with the temporaries of the column integrals); one block runs per worker thread.
 CHUNK_BYTES = 64 * 2**20
 
 #: At most this many steps per block: progress stays fine-grained and threads stay busy.
@@ -51,7 +51,9 @@ def _block_steps(fields, st, ds, nt: int) -> int:
     box = len(np.unique(st.rows)) * len(np.unique(st.cols))
     temps = 3 if fields.kind == "levels" else 2  # float64 copies and temporaries per value
     per_step = max(1, box * nlev * nvar * 8 * temps)
-    cap = max(1, min(MAX_BLOCK_STEPS, CHUNK_BYTES // per_step))
+    # the budget is shared by the blocks in flight, one per local worker thread
+    per_block = CHUNK_BYTES // max(1, os.cpu_count() or 1)
+    cap = max(1, min(MAX_BLOCK_STEPS, per_block // per_step))
     tchunk = _time_chunk(ds)
     if tchunk and cap >= tchunk:
         cap = (cap // tchunk) * tchunk
