@@ -83,6 +83,15 @@ def test_drawn_rectangle_gives_the_engine_budget_of_that_box(app_page, sample):
     assert any(t["name"] == "import density" for t in graph_traces(page, "profile"))
     assert any(t["type"] == "heatmap" for t in graph_traces(page, "curtain"))
 
+    # the time marker on the series follows the slider (its right end is the last step)
+    track = page.locator("#time").bounding_box()
+    page.mouse.click(track["x"] + track["width"] - 2, track["y"] + track["height"] / 2)
+    page.wait_for_function(
+        """() => {
+            const gd = document.querySelector('#series .js-plotly-plot');
+            return (gd.layout.shapes || []).some(s => String(s.x0).startsWith('2025-01-20'));
+        }""", timeout=15_000)
+
 
 def test_upload_geojson_and_an_invalid_one_shows_the_engine_message(app_page, sample, tmp_path):
     from budget.errors import RegionError
