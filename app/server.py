@@ -7,6 +7,10 @@ The server reads only the field files given here or found under ``data_dir``: a 
 a field set by its index in that list, never by a path.  With neither, it opens the bundled
 invented sample event.  Debug is off, the bind address defaults to 127.0.0.1, uploads are
 capped (UPLOAD_LIMIT_BYTES) and no user input is evaluated.
+
+Budget jobs run in spawned worker processes, which import the main module again: a script
+of your own that calls ``serve`` or ``create_app(...).run`` must do so under
+``if __name__ == "__main__":`` (as ``fluxfence serve`` does).
 """
 
 from __future__ import annotations
