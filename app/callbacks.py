@@ -599,8 +599,14 @@ def request_budget(selected, method, source_id, regions, _tick, current):
         now = time.time()
         if (beat is not None and now - beat < 10) or now - current.get("submitted", 0) < 8:
             raise PreventUpdate
+        attempt = int(current.get("attempt", 0)) + 1
+        if attempt > 2:
+            cache.set(f"error:{current['key']}", "The background worker did not start or "
+                      "stopped without a word; see the server log, then choose the region "
+                      "again.", expire=600)
+            raise PreventUpdate
         log.info("budget job for %s did not report; submitting it again", current["name"])
-        again = dict(current, submitted=now)
+        again = dict(current, submitted=now, attempt=attempt)
         return again, again
     rec = next((r for r in regions or [] if r["id"] == selected), None)
     if rec is None:
