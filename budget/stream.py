@@ -215,6 +215,7 @@ def _run_threads(func, blocks, todo, finished) -> None:
 
     name = f"fluxfence-block-{uuid.uuid4().hex[:8]}"
     dsk = {(name, i): (_call_block, func, blocks[i].start, blocks[i].stop) for i in todo}
+
     def posttask(key, result, dsk_, state, worker_id):
         # dask calls this in the scheduling (calling) thread, once per finished task
         finished(key[1], result)
@@ -237,7 +238,15 @@ def _run_cluster(func, blocks, todo, scheduler, finished) -> None:
             index[fut.key] = i
             futures.append(fut)
         for fut in as_completed(futures, loop=client.loop):
-            finished(index[fut.key], fut.result())
+            try:
+                res = fut.result()
+            except OSError as exc:  # typically: the workers do not see the input files
+                raise RequestError(
+                    f"A worker of the dask cluster could not read the input ({str(exc).splitlines()[0][:200]}); "
+                    "the workers need the same input paths as this machine (a shared file system), "
+                    "or run without a scheduler."
+                ) from None
+            finished(index[fut.key], res)
     except BaseException:
         if futures:
             try:

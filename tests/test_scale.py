@@ -351,3 +351,14 @@ def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tm
     # and the same numbers as the ascending file without a window
     ref = compute(open_fields(tmp_path / "asc.nc"), region, scheduler="sync")
     np.testing.assert_allclose(got["vapour_import"].values, ref["vapour_import"].values[2:10], rtol=1e-12)
+
+
+def test_cluster_workers_that_cannot_read_the_input_get_one_sentence(col40, cluster, tmp_path):
+    import shutil
+
+    copy = tmp_path / "gone.nc"
+    shutil.copyfile(col40, copy)
+    fields = open_fields(copy)  # opened here, then taken away before the workers read it
+    copy.unlink()
+    with pytest.raises(RequestError, match="could not read the input"):
+        compute(fields, region_from_vertices(*POLY), scheduler=cluster.scheduler_address)
