@@ -775,3 +775,19 @@ def download_netcdf(_n, want):
     if ds is None:
         raise PreventUpdate
     return dcc.send_bytes(to_netcdf_bytes(ds), f"{_slug(want['name'])}_{want['method']}.nc")
+
+
+@callback(
+    Output("budget-watch", "n_intervals"),
+    Input("budget-cancel", "n_clicks"),
+    State("want", "data"),
+    State("budget-watch", "n_intervals"),
+    prevent_initial_call=True,
+)
+def cancel_budget(_n, want, ticks):
+    """Cancel (the job itself is stopped by Dash): say so, and keep the watchdog quiet."""
+    if not want:
+        raise PreventUpdate
+    _results().set(f"error:{want['key']}", "The computation was cancelled; choose the region "
+                   "(or the method) again to start it anew.", expire=3600)
+    return (ticks or 0) + 1
