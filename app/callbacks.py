@@ -628,7 +628,7 @@ def request_budget(selected, method, source_id, regions, _tick, current):
     Input("job", "data"),
     background=True,
     progress=[Output("budget-progress", "value"), Output("budget-progress", "max")],
-    progress_default=["0", "1"],
+    progress_default=[None, None],  # no value: the bar moves to and fro until the first step
     running=[(Output("budget-running", "style"), {"display": "flex"}, {"display": "none"})],
     cancel=[Input("budget-cancel", "n_clicks")],
     interval=500,

@@ -492,7 +492,8 @@ def series_figure(budget, units: str = "mm/day", time_index: int | None = None) 
     fig = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.08,
                         row_heights=[0.35, 0.65])
     fig.add_trace(go.Scatter(
-        x=times, y=np.asarray(budget["precipitable_water"].values, float), mode="lines+markers",
+        x=times, y=np.asarray(budget["precipitable_water"].values, float),
+        mode="lines+markers" if len(times) <= 60 else "lines",
         marker=dict(size=4), line=dict(color="#3d5a92", width=2), name="W (area mean)",
         hovertemplate="%{x|%Y-%m-%d %H:%M}<br>W %{y:.2f} kg m⁻²<extra></extra>",
     ), row=1, col=1)

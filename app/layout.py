@@ -166,7 +166,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
         html.Div(id="budget-running", className="running", style={"display": "none"},
                  children=[
             html.Span("Computing the budget…"),
-            html.Progress(id="budget-progress", value="0", max="1"),
+            html.Progress(id="budget-progress", **{"aria-label": "budget progress"}),
             html.Button("Cancel", id="budget-cancel", className="btn small"),
         ]),
         html.Div(id="budget-table"),
