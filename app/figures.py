@@ -527,6 +527,20 @@ PERIOD_TERMS = [
     ("area_convergence", "Convergence, area method"),
     ("pw_tendency", "Change of precipitable water, dW/dt"),
     ("p_minus_e", "P − E"),
+    # closing the budget (present only when they apply, budget/closure.py)
+    ("p_minus_e_uncorrected", "P − E without the mass correction"),
+    ("mass_correction_convergence", "Effect of the mass correction"),
+    ("precipitation", "Precipitation in the files"),
+    ("evaporation", "Evaporation in the files (upward)"),
+    ("p_minus_e_observed", "P − E from the files"),
+    ("closure_residual", "Closure residual (files − budget)"),
+    ("p_minus_e_total_water", "P − E, total water"),
+]
+
+#: Closure terms shown as period means in their own units (not convertible rates).
+CLOSURE_MEANS = [
+    ("dry_air_residual_pressure", "Dry-air residual", "hPa day⁻¹", 1.0),
+    ("mass_correction_speed", "Mass-correction speed (outward)", "cm s⁻¹", 100.0),
 ]
 
 
@@ -575,6 +589,21 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
             "mean_value": mean,
             "total_value": total,
         })
+    for var, label, unit, factor in CLOSURE_MEANS:
+        if var not in budget:
+            continue
+        vals = np.asarray(budget[var].values[start:end + 1], float) * factor
+        rows.append({
+            "term": label,
+            "mean": f"{number(float(np.mean(vals)))} {unit}",
+            "total": f"mean |x| {number(float(np.mean(np.abs(vals))))} {unit}",
+            "mean_value": float(np.mean(vals)),
+            "total_value": float(np.mean(np.abs(vals))),
+        })
+    if "mass_correction" in budget.attrs and budget.attrs["mass_correction"]:
+        state = str(budget.attrs["mass_correction"])
+        rows.append({"term": "Mass correction", "mean": state.split(";")[0], "total": "",
+                     "mean_value": float("nan"), "total_value": float("nan")})
     w = np.asarray(budget["precipitable_water"].values[start:end + 1], float)
     rows.append({
         "term": "Precipitable water (start → end)",
