@@ -641,7 +641,12 @@ def run_budget(set_progress, job):
 
     if not job:
         raise PreventUpdate
-    key = job["key"]
+    try:  # the key is derived here again: the page's copy is never trusted
+        key = _budget_key(job["source"], job["geojson"], job["method"])
+    except (KeyError, TypeError, AttributeError):
+        raise PreventUpdate
+    if key != job.get("key"):
+        raise PreventUpdate
     cache = _results()
     if key in cache:
         return {"key": key, "error": None}

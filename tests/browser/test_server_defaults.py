@@ -69,3 +69,21 @@ def test_closed_path_from_plotly_becomes_vertices():
     assert lon == [1.5, 10.0, 9.75] and lat == [40.0, 40.25, 47.5]
     lon, lat = callbacks.path_vertices("M-3,38L4,38L4,45L-3,38")
     assert lon == [-3.0, 4.0, 4.0] and lat == [38.0, 38.0, 45.0]
+
+
+def test_a_budget_job_with_a_forged_key_is_refused(tmp_path):
+    from dash.exceptions import PreventUpdate
+
+    from budget.region import region_from_bbox
+
+    server.create_app(cache_dir=tmp_path / "cache")
+    geojson = region_from_bbox(0, 40, 5, 45).to_geojson()
+    job = {"key": "0" * 32, "source": "0", "method": "boundary", "geojson": geojson}
+    with pytest.raises(PreventUpdate):
+        callbacks.run_budget(lambda progress: None, job)
+    assert "0" * 32 not in callbacks._results()
+    # with its true key the same job computes and caches the engine's budget
+    job["key"] = callbacks._budget_key("0", geojson, "boundary")
+    assert callbacks.run_budget(lambda progress: None, job) == {"key": job["key"], "error": None}
+    ds = callbacks._results()[job["key"]]
+    assert ds.attrs["method"] == "boundary" and "p_minus_e" in ds
