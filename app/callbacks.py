@@ -319,6 +319,7 @@ def edit_regions(relayout, click, _close, _undo, _clear, tool, contents, _use, _
             return _pack(message=f"The list holds {MAX_REGIONS} regions already; "
                          "remove one before adding another.", message_class="notice error")
         rid = _new_id(regions)
+        name = name.replace("{n}", rid[1:])  # default names count like the ids: unique
         rec = _record(region, rid, name)
         new = regions + [rec]
         return _pack(regions=new, options=_options(new), selected=rid,
@@ -341,17 +342,16 @@ def edit_regions(relayout, click, _close, _undo, _clear, tool, contents, _use, _
             if not shapes:
                 raise PreventUpdate
             shape = shapes[-1]
-            n = sum(1 for r in regions) + 1
             if shape.get("type") == "rect":
                 xs = sorted([float(shape["x0"]), float(shape["x1"])])
                 ys = sorted([float(shape["y0"]), float(shape["y1"])])
                 region = region_from_bbox(round(xs[0], 2), round(ys[0], 2), round(xs[1], 2),
                                           round(ys[1], 2))
-                return added(region, f"Box {n}")
+                return added(region, "Box {n}")
             if shape.get("type") == "path":
                 lon, lat = path_vertices(shape.get("path", ""))
                 region = region_from_vertices(np.round(lon, 3), np.round(lat, 3))
-                return added(region, f"Shape {n}")
+                return added(region, "Shape {n}")
             raise PreventUpdate
         if trigger == "click-undo":
             return _pack(vertices=vertices[:-1])
@@ -363,11 +363,11 @@ def edit_regions(relayout, click, _close, _undo, _clear, tool, contents, _use, _
                              f"{len(vertices)} placed so far — click more points on the map.",
                              message_class="notice error")
             region = region_from_vertices([v[0] for v in vertices], [v[1] for v in vertices])
-            out = added(region, f"Clicked shape {len(regions) + 1}")
+            out = added(region, "Clicked shape {n}")
             return out[:3] + ([],) + out[4:]
         if trigger == "box-add":
             region = region_from_bbox(west, south, east, north)
-            return added(region, f"Typed box {len(regions) + 1}")
+            return added(region, "Typed box {n}")
         if trigger == "upload":
             if not contents:
                 raise PreventUpdate
