@@ -152,7 +152,7 @@ def _coastline():
     return _COAST["lines"]
 
 
-def _budget_key(source_id, geojson: dict, method: str) -> str:
+def _budget_key(source_id, geojson: dict, method: str, correction: str = "default") -> str:
     src = _source(source_id)
     stamps = []
     for p in src["paths"]:
@@ -169,6 +169,7 @@ def _budget_key(source_id, geojson: dict, method: str) -> str:
         "great_circle": props.get("great_circle"),
         "bbox": props.get("bbox"),
         "method": method,
+        "correction": correction,
     }, sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
@@ -586,10 +587,11 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
     Input("method", "value"),
     Input("source", "value"),
     Input("regions", "data"),
+    Input("correction", "value"),
     Input("budget-watch", "n_intervals"),
     State("want", "data"),
 )
-def request_budget(selected, method, source_id, regions, _tick, current):
+def request_budget(selected, method, source_id, regions, correction, _tick, current):
     cache = _results()
     if ctx.triggered_id == "budget-watch":
         # the watchdog: a job that never started or died without a word is submitted again
@@ -612,11 +614,11 @@ def request_budget(selected, method, source_id, regions, _tick, current):
     if rec is None:
         return None, no_update
     try:
-        key = _budget_key(source_id, rec["geojson"], method)
+        key = _budget_key(source_id, rec["geojson"], method, correction)
     except KeyError:
         return None, no_update
     want = {"key": key, "source": str(source_id), "method": method, "geojson": rec["geojson"],
-            "name": rec["name"], "submitted": time.time()}
+            "name": rec["name"], "correction": correction, "submitted": time.time()}
     if key in cache:
         return want, no_update
     cache.delete(f"error:{key}")
@@ -642,7 +644,10 @@ def run_budget(set_progress, job):
     if not job:
         raise PreventUpdate
     try:  # the key is derived here again: the page's copy is never trusted
-        key = _budget_key(job["source"], job["geojson"], job["method"])
+        correction = job.get("correction", "default")
+        if correction not in ("default", "off"):
+            raise PreventUpdate
+        key = _budget_key(job["source"], job["geojson"], job["method"], correction)
     except (KeyError, TypeError, AttributeError):
         raise PreventUpdate
     if key != job.get("key"):
@@ -662,6 +667,7 @@ def run_budget(set_progress, job):
         fields = _fields(job["source"])
         region = region_from_geojson(job["geojson"], name=job.get("name"))
         ds = compute(fields, region, method=job["method"], profiles=True,
+                     mass_correction=False if correction == "off" else None,
                      progress=lambda done, total: set_progress((str(done), str(total))))
         ds = ds.load()
         cache.set(key, ds)

@@ -34,6 +34,10 @@ UNITS = [
     {"label": "kg/s", "value": "kg/s"},
     {"label": "m³/s", "value": "m3/s"},
 ]
+CORRECTION = [
+    {"label": "as the engine advises", "value": "default"},  # on for level inputs
+    {"label": "off", "value": "off"},
+]
 METHODS = [
     {"label": "boundary line integral", "value": "boundary"},
     {"label": "area integral of divergence", "value": "area"},
@@ -157,6 +161,9 @@ def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
         html.Div(className="controls", children=[
             html.Div([html.Span("Convergence from", className="control-label"),
                       dcc.RadioItems(id="method", options=METHODS, value="boundary",
+                                     inline=True, className="segmented")]),
+            html.Div([html.Span("Dry-air mass correction", className="control-label"),
+                      dcc.RadioItems(id="correction", options=CORRECTION, value="default",
                                      inline=True, className="segmented")]),
             html.Div([html.Span("Rates in", className="control-label"),
                       dcc.RadioItems(id="units", options=UNITS, value="mm/day", inline=True,

@@ -87,3 +87,24 @@ def test_a_budget_job_with_a_forged_key_is_refused(tmp_path):
     assert callbacks.run_budget(lambda progress: None, job) == {"key": job["key"], "error": None}
     ds = callbacks._results()[job["key"]]
     assert ds.attrs["method"] == "boundary" and "p_minus_e" in ds
+
+
+def test_mass_correction_off_is_its_own_cached_result(tmp_path):
+    import numpy as np
+
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_bbox, region_from_geojson
+
+    server.create_app(cache_dir=tmp_path / "cache")
+    geojson = region_from_bbox(0, 40, 8, 46).to_geojson()
+    keys = {c: callbacks._budget_key("0", geojson, "boundary", c) for c in ("default", "off")}
+    assert keys["default"] != keys["off"]
+    job = {"key": keys["off"], "source": "0", "method": "boundary", "geojson": geojson,
+           "correction": "off"}
+    assert callbacks.run_budget(lambda progress: None, job)["error"] is None
+    shown = callbacks._results()[keys["off"]]
+    expected = compute(open_fields(callbacks._source("0")["paths"]),
+                       region_from_geojson(geojson), mass_correction=False)
+    np.testing.assert_allclose(shown["p_minus_e"].values, expected["p_minus_e"].values,
+                               rtol=1e-12)
