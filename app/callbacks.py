@@ -320,7 +320,11 @@ def edit_regions(relayout, click, _close, _undo, _clear, tool, contents, _use, _
             return _pack(message=f"The list holds {MAX_REGIONS} regions already; "
                          "remove one before adding another.", message_class="notice error")
         rid = _new_id(regions)
-        name = name.replace("{n}", rid[1:])  # default names count like the ids: unique
+        taken = {r["name"] for r in regions}
+        k = 1  # default names count regions of their own kind ("Box 1", "Box 2", …), unique
+        while name.replace("{n}", str(k)) in taken:
+            k += 1
+        name = name.replace("{n}", str(k))
         rec = _record(region, rid, name)
         new = regions + [rec]
         return _pack(regions=new, options=_options(new), selected=rid,
@@ -560,10 +564,17 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
         label = _iso(fields.ds["time"].values[t])
         dragmode = "pan" if tool in ("pan", "click") else tool
         field = field or "ivt"
-        # colour limits only widen as more time steps are seen, so the scale holds still
+        # colour limits only widen as more time steps are seen, so the scale holds still;
+        # on first sight of a field they come from up to 8 steps spread over the record
+        # (when the grid is small enough to integrate that often), so the event's peak
+        # does not saturate the scale
         lo, hi = figures.color_limits(figures.field_values(snap, field), field)
         rkey = (os.getpid(), str(source_id), field)
         seen = _RANGES.get(rkey)
+        if seen is None and fields.ds["lat"].size * fields.ds["lon"].size * fields.ds.sizes.get("level", 1) <= 2_000_000:
+            for k in np.unique(np.linspace(0, nt - 1, min(nt, 8)).round().astype(int)):
+                klo, khi = figures.color_limits(figures.field_values(_snapshot(source_id, int(k)), field), field)
+                lo, hi = min(lo, klo), max(hi, khi)
         if seen is not None:
             lo, hi = min(lo, seen[0]), max(hi, seen[1])
         _RANGES[rkey] = (lo, hi)
@@ -742,7 +753,7 @@ def _show_budget(want, done, units, time_index, period):
         lo, hi = (period or [0, nt - 1])[:2]
         lo, hi = int(lo), int(min(hi, nt - 1))
         times = ds["time"].values
-        series = figures.series_figure(ds, units, time_index=t)
+        series = figures.series_figure(ds, units, time_index=t, name=want.get("name"))
         profile = figures.profile_figure(ds, t)
         curtain = figures.curtain_figure(ds, t)
         table = _table(figures.period_rows(ds, units, lo, hi), figures.edge_rows(ds, units, lo, hi))

@@ -483,7 +483,7 @@ SERIES_RATES = [
 ]
 
 
-def series_figure(budget, units: str = "mm/day", time_index: int | None = None) -> go.Figure:
+def series_figure(budget, units: str = "mm/day", time_index: int | None = None, name: str | None = None) -> go.Figure:
     """Precipitable water and the budget rates over time, rates in `units`."""
     if units not in UNIT_LABELS:
         raise ValueError(f"unknown units {units!r}")
@@ -513,7 +513,7 @@ def series_figure(budget, units: str = "mm/day", time_index: int | None = None) 
             fig.add_vline(x=t, line=dict(color=INK, width=1.2, dash="dash"), row=row, col=1)
     _base_layout(fig, showlegend=True, hovermode="x unified",
                  legend=dict(orientation="h", y=-0.16, x=0, font=dict(size=11)),
-                 title=dict(text=f"Budget of the region (rates in {UNIT_LABELS[units]})",
+                 title=dict(text=f"Budget of {name or budget.attrs.get('region_name') or 'the region'} (rates in {UNIT_LABELS[units]})",
                             x=0.01, font=dict(size=14)))
     fig.update_yaxes(title_text="W (kg m⁻²)", gridcolor=GRID, row=1, col=1)
     fig.update_yaxes(title_text=f"rate ({UNIT_LABELS[units]})", gridcolor=GRID, row=2, col=1)

@@ -55,8 +55,12 @@ def _notice(id_):
     return html.Div(id=id_, className="notice", role="alert", **{"aria-live": "polite"})
 
 
-def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
-    """sources: [{"value": id, "label": text}] of the field sets this server may read."""
+def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=None) -> html.Div:
+    """sources: [{"value": id, "label": text}] of the field sets this server may read;
+    initial_regions: region records to start with (the sample's invented basin), the first
+    one selected."""
+    initial_regions = list(initial_regions or [])
+    first = initial_regions[0]["id"] if initial_regions else None
     header = html.Header(
         className="topbar",
         children=[
@@ -113,7 +117,8 @@ def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
         "Region",
         _notice("region-message"),
         html.Div(className="row", children=[
-            dcc.Dropdown(id="region-select", options=[], value=None, clearable=False,
+            dcc.Dropdown(id="region-select", value=first, clearable=False,
+                         options=[{"label": r["name"], "value": r["id"]} for r in initial_regions],
                          placeholder="no region yet — draw one on the map",
                          className="grow"),
             html.Button("Remove", id="region-remove", className="btn"),
@@ -218,7 +223,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float) -> html.Div:
             profile_card,
         ]),
         footer,
-        dcc.Store(id="regions", data=[]),
+        dcc.Store(id="regions", data=initial_regions),
         dcc.Store(id="vertices", data=[]),
         dcc.Store(id="upload-held", data=None),
         dcc.Store(id="want", data=None),

@@ -108,6 +108,19 @@ def _spawning_manager(cache):
     return SpawningDiskcacheManager(cache)
 
 
+def _initial_regions(sources) -> list:
+    """The sample event opens with its invented basin selected, so the first screen has a budget."""
+    from budget.region import load_region
+
+    from .callbacks import _record
+
+    basin = sources[0].get("basin") if sources else None
+    if not basin:
+        return []
+    region = load_region(path=basin)
+    return [_record(region, "r1", "Sample basin (invented)")]
+
+
 def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
     """Build the dashboard for the given fields (the sample event when none are given)."""
     import diskcache
@@ -138,6 +151,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
     app.layout = build_layout(
         [{"value": s["id"], "label": s["label"]} for s in sources],
         upload_limit_mb=UPLOAD_LIMIT_BYTES / 2**20,
+        initial_regions=_initial_regions(sources),
     )
     return app
 

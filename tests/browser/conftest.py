@@ -17,6 +17,9 @@ CHROMIUM = "/usr/bin/chromium"
 
 @pytest.fixture(scope="session")
 def browser_type_launch_args(browser_type_launch_args):
+    if not Path(CHROMIUM).exists():
+        pytest.fail("The browser tests need Debian's Chromium at /usr/bin/chromium: "
+                    "apt-get install -y chromium (never `playwright install`).", pytrace=False)
     return {
         **browser_type_launch_args,
         "executable_path": CHROMIUM,
@@ -117,12 +120,15 @@ def graph_traces(page, graph_id: str) -> list[dict]:
     )
 
 
-def wait_for_series(page, timeout=60_000):
-    """Wait until the budget series shows data (the background job has finished)."""
+def wait_for_series(page, name, timeout=60_000):
+    """Wait until the budget series of the region called ``name`` shows data (its background
+    job has finished); the sample opens with its basin's series, so the name matters."""
     page.wait_for_function(
-        """() => {
+        """(name) => {
             const gd = document.querySelector('#series .js-plotly-plot');
-            return gd && gd.data && gd.data.some(t => t.name === 'P − E');
+            const title = gd && gd.layout && gd.layout.title && gd.layout.title.text;
+            return gd && gd.data && gd.data.some(t => t.name === 'P − E')
+                && title && title.includes(name);
         }""",
-        timeout=timeout,
+        arg=name, timeout=timeout,
     )

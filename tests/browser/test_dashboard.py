@@ -63,7 +63,7 @@ def test_drawn_rectangle_gives_the_engine_budget_of_that_box(app_page, sample):
     for k in range(1, 11):
         page.mouse.move(x0 + (x1 - x0) * k / 10, y0 + (y1 - y0) * k / 10)
     page.mouse.up()
-    wait_for_series(page)
+    wait_for_series(page, "Box 1")
     assert "Box 1" in page.inner_text("#region-select")
     shown = np.asarray(_pme_trace(page)["y"], dtype=float)
 
@@ -100,7 +100,7 @@ def test_upload_geojson_and_an_invalid_one_shows_the_engine_message(app_page, sa
     page = app_page
     page.click("#adder-upload summary")
     page.set_input_files("#upload input[type=file]", str(sample.basin))
-    wait_for_series(page)
+    wait_for_series(page, "Invented basin")
     assert "Invented basin" in page.inner_text("#region-select")
 
     # a bow-tie: its edges cross, which the engine rejects with one sentence
@@ -134,7 +134,7 @@ def test_typed_box_csv_download_matches_the_command_line(app_page, sample, tmp_p
     for field, value in (("west", "-4"), ("south", "38"), ("east", "9"), ("north", "50")):
         page.fill(f"#box-{field}", value)
     page.click("#box-add")
-    wait_for_series(page)
+    wait_for_series(page, "Typed box 1")
     page.wait_for_selector("#budget-table table")
     got = open(_download(page, "dl-csv").path(), encoding="utf-8").read()
 
@@ -232,7 +232,7 @@ def test_click_vertices_draw_a_shape_switch_back_and_units(app_page):
                 continue
         assert page.evaluate(counted), f"vertex {k} was not registered"
     page.click("#click-close")
-    wait_for_series(page)
+    wait_for_series(page, "Clicked shape 1")
     assert "Clicked shape 1" in page.inner_text("#region-select")
     assert "4 vertices" in page.inner_text("#region-info")
     # clicks snap to grid-cell centres (0.5° grid), so the area is that of the clicked corners
@@ -252,7 +252,7 @@ def test_click_vertices_draw_a_shape_switch_back_and_units(app_page):
         page.mouse.move(*to_pixels(page, lon, lat), steps=8)
     page.mouse.up()
     page.wait_for_function(
-        "document.querySelector('#region-select').textContent.includes('Shape 2')",
+        "document.querySelector('#region-select').textContent.includes('Shape 1')",
         timeout=15_000)
     # the series changes to the new region's budget once its job has finished
     page.wait_for_function(
@@ -311,8 +311,26 @@ def test_zipped_shapefile_with_two_features_offers_a_picker(app_page, tmp_path):
     page.click("#feature")
     page.get_by_role("option", name="east basin").click()
     page.click("#feature-use")
-    wait_for_series(page)
+    wait_for_series(page, "east basin")
     assert "east basin" in page.inner_text("#region-select")
     want = region_from_upload("two_basins.zip", archive.read_bytes(), feature=1).area_m2()
     shown_km2 = float(page.inner_text("#region-info").split(" km²")[0].replace(",", ""))
     assert shown_km2 == pytest.approx(want / 1e6, abs=1)
+
+
+@pytest.mark.browser
+def test_sample_opens_with_its_basin_budget(app_page):
+    # the first screen already shows a budget: the sample's invented basin, preselected
+    import budget
+    from sample_fields import ensure_sample
+
+    page = app_page
+    wait_for_series(page, "Sample basin")
+    assert "Sample basin (invented)" in page.inner_text("#region-select")
+    sample = ensure_sample()
+    ds = budget.compute(budget.open_fields(sample.levels), budget.load_region(path=sample.basin))
+    shown = np.asarray(_pme_trace(page)["y"], dtype=float)
+    # the page shows the engine's P − E in mm/day (kg m-2 s-1 × 86400, CHECKS.md)
+    np.testing.assert_allclose(shown, ds["p_minus_e"].values * 86400, rtol=1e-6)
+    page.wait_for_selector("#budget-table table")
+    assert "Dry-air residual" in page.inner_text("#budget-table")
