@@ -85,6 +85,9 @@ def app_page(page, dashboard, shots_dir, request):
     page.goto(dashboard["url"] + "/")
     page.wait_for_selector("#map .heatmaplayer image, #map .hm image", timeout=30_000)
     page.wait_for_function("document.querySelector('#time-label').textContent.length > 0")
+    # the sample opens with its basin selected: let that first job finish (cached after the
+    # first test), so a cold start's worker does not race the test's own requests
+    wait_for_series(page, "Sample basin", timeout=120_000)
     page.watch = watch
     yield page
     page.screenshot(path=str(shots_dir / f"{request.node.name}.png"), full_page=True)

@@ -306,7 +306,7 @@ def test_zipped_shapefile_with_two_features_offers_a_picker(app_page, tmp_path):
     page = app_page
     page.click("#adder-upload summary")
     page.set_input_files("#upload input[type=file]", str(archive))
-    page.wait_for_selector("#feature-row", state="visible", timeout=15_000)
+    page.wait_for_selector("#feature-row", state="visible", timeout=45_000)
     assert "holds 2 features" in page.inner_text("#region-message")
     page.click("#feature")
     page.get_by_role("option", name="east basin").click()
