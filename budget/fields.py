@@ -421,6 +421,19 @@ def _time_chunks(path: str) -> dict | None:
         ds.close()
 
 
+#: Horizontal tile (grid cells) of the dask chunks of multi-file inputs.
+_TILE = 128
+
+
+def _space_tiles(path: str) -> dict:
+    """{lat_dim: _TILE, lon_dim: _TILE} for horizontal dims longer than a tile."""
+    ds = _open_one_plain(path)
+    try:
+        return {name: _TILE for name in _LAT_NAMES + _LON_NAMES if name in ds.dims and ds.sizes[name] > _TILE}
+    finally:
+        ds.close()
+
+
 def _open(paths, chunks) -> tuple[xr.Dataset, list[str]]:
     if isinstance(paths, xr.Dataset):
         ds = paths
@@ -444,6 +457,10 @@ def _open(paths, chunks) -> tuple[xr.Dataset, list[str]]:
     deferred = chunks is None and len(files) == 1
     if chunks is None:
         chunks = _time_chunks(files[0])
+        if len(files) > 1:
+            # several files are joined by dask, and slices do not reach the file reader
+            # through the join; tiled chunks let dask compute only the tiles a region touches
+            chunks = {**chunks, **_space_tiles(files[0])}
     if len(files) == 1:
         try:
             with _warnings.catch_warnings():

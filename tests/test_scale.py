@@ -362,3 +362,37 @@ def test_cluster_workers_that_cannot_read_the_input_get_one_sentence(col40, clus
     copy.unlink()
     with pytest.raises(RequestError, match="could not read the input"):
         compute(fields, region_from_vertices(*POLY), scheduler=cluster.scheduler_address)
+
+
+def test_multi_file_input_reads_the_touched_tiles_not_whole_grid_chunks(tmp_path, monkeypatch):
+    # Monthly files are the usual reanalysis layout: joined by open_mfdataset, they must not
+    # make a basin read the whole grid of every step (the touched tiles are the floor dask
+    # can reach through the join).
+    from xarray.backends import netCDF4_
+
+    write_column_file(tmp_path / "all.nc", 12, res=0.25, time_chunk=6)
+    with xr.open_dataset(tmp_path / "all.nc") as full:
+        full = full.load()
+    for k, part in enumerate((slice(0, 6), slice(6, 12))):
+        full.isel(time=part).to_netcdf(tmp_path / f"part{k}.nc")
+    from budget.region import region_from_bbox
+
+    region = region_from_bbox(0, 40, 4, 43)  # a basin-sized box inside one 128-cell tile
+    fields = open_fields(sorted(str(p) for p in tmp_path.glob("part*.nc")))
+    reads = []
+    real = netCDF4_.NetCDF4ArrayWrapper._getitem
+
+    def recording(self, key):
+        out = real(self, key)
+        reads.append(np.size(out))
+        return out
+
+    monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+    got = compute(fields, region, scheduler="sync")
+    from budget.fields import _TILE
+
+    whole = 3 * 12 * full.sizes["lat"] * full.sizes["lon"]  # three variables, every step
+    one_tile = 3 * 12 * _TILE * _TILE  # the box lies inside one tile
+    assert sum(reads) <= one_tile < whole / 2, (sum(reads), one_tile, whole)
+    ref = compute(open_fields(tmp_path / "all.nc"), region, scheduler="sync")
+    np.testing.assert_allclose(got["vapour_import"].values, ref["vapour_import"].values, rtol=1e-12)
