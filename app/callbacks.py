@@ -778,10 +778,19 @@ def _show_budget(want, done, units, time_index, period):
 def download_csv(_n, want):
     from budget.export import to_csv_text
 
+    return _download(want, lambda ds: dcc.send_string(to_csv_text(ds), _download_name(want, "csv")))
+
+
+def _download_name(want, ext):
+    return f"{_slug(want['name'])}_{want['method']}.{ext}"
+
+
+def _download(want, send):
+    """The cached budget of the selected region handed to ``send``; nothing while computing."""
     ds = _results().get(want["key"]) if want else None
     if ds is None:
         raise PreventUpdate
-    return dcc.send_string(to_csv_text(ds), f"{_slug(want['name'])}_{want['method']}.csv")
+    return send(ds)
 
 
 @callback(
@@ -793,10 +802,7 @@ def download_csv(_n, want):
 def download_netcdf(_n, want):
     from budget.export import to_netcdf_bytes
 
-    ds = _results().get(want["key"]) if want else None
-    if ds is None:
-        raise PreventUpdate
-    return dcc.send_bytes(to_netcdf_bytes(ds), f"{_slug(want['name'])}_{want['method']}.nc")
+    return _download(want, lambda ds: dcc.send_bytes(to_netcdf_bytes(ds), _download_name(want, "nc")))
 
 
 @callback(

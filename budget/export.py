@@ -6,7 +6,6 @@ complete, so an existing output is never left half-written.
 
 from __future__ import annotations
 
-import io
 import os
 import tempfile
 from pathlib import Path

@@ -320,11 +320,29 @@ def test_interrupted_cluster_run_resumes_to_the_local_result(col40, small_blocks
     assert not store.exists()
 
 
-def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tmp_path, monkeypatch):
-    # Reanalysis files often store latitude north to south, and the command line passes
-    # --start/--end to open_fields: neither may make a block read whole chunks.
+@pytest.fixture
+def storage_reads(monkeypatch):
+    """Start recording the number of values each NetCDF read returns; returns the list."""
     from xarray.backends import netCDF4_
 
+    def start():
+        reads = []
+        real = netCDF4_.NetCDF4ArrayWrapper._getitem
+
+        def recording(self, key):
+            out = real(self, key)
+            reads.append(np.size(out))
+            return out
+
+        monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+        return reads
+
+    return start
+
+
+def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tmp_path, storage_reads):
+    # Reanalysis files often store latitude north to south, and the command line passes
+    # --start/--end to open_fields: neither may make a block read whole chunks.
     path = tmp_path / "desc.nc"
     write_column_file(tmp_path / "asc.nc", 12, res=0.25, time_chunk=12)
     with xr.open_dataset(tmp_path / "asc.nc") as asc:
@@ -333,15 +351,7 @@ def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tm
     region = region_from_vertices(*POLY)
     t = d["time"].values
     fields = open_fields(path, start=str(t[2]), end=str(t[9]))
-    reads = []
-    real = netCDF4_.NetCDF4ArrayWrapper._getitem
-
-    def recording(self, key):
-        out = real(self, key)
-        reads.append(np.size(out))
-        return out
-
-    monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+    reads = storage_reads()
     got = compute(fields, region, scheduler="sync")
     st = ledger.compile_stencil(region, ledger.Grid.from_fields(fields))
     box = 8 * (np.ptp(st.rows) + 1) * (np.ptp(st.cols) + 1)  # 8 steps in the window
@@ -364,12 +374,10 @@ def test_cluster_workers_that_cannot_read_the_input_get_one_sentence(col40, clus
         compute(fields, region_from_vertices(*POLY), scheduler=cluster.scheduler_address)
 
 
-def test_multi_file_input_reads_the_touched_tiles_not_whole_grid_chunks(tmp_path, monkeypatch):
+def test_multi_file_input_reads_the_touched_tiles_not_whole_grid_chunks(tmp_path, storage_reads):
     # Monthly files are the usual reanalysis layout: joined by open_mfdataset, they must not
     # make a basin read the whole grid of every step (the touched tiles are the floor dask
     # can reach through the join).
-    from xarray.backends import netCDF4_
-
     write_column_file(tmp_path / "all.nc", 12, res=0.25, time_chunk=6)
     with xr.open_dataset(tmp_path / "all.nc") as full:
         full = full.load()
@@ -379,15 +387,7 @@ def test_multi_file_input_reads_the_touched_tiles_not_whole_grid_chunks(tmp_path
 
     region = region_from_bbox(0, 40, 4, 43)  # a basin-sized box inside one 128-cell tile
     fields = open_fields(sorted(str(p) for p in tmp_path.glob("part*.nc")))
-    reads = []
-    real = netCDF4_.NetCDF4ArrayWrapper._getitem
-
-    def recording(self, key):
-        out = real(self, key)
-        reads.append(np.size(out))
-        return out
-
-    monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+    reads = storage_reads()
     got = compute(fields, region, scheduler="sync")
     from budget.fields import _TILE
 
