@@ -395,6 +395,8 @@ def _open_one_plain(path: str) -> xr.Dataset:
 
 def _short(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    if "did not find a match in any of xarray" in text:  # xarray's wording for "no reader"
+        return "its contents are not NetCDF, HDF5 or Zarr"
     return text[:200]
 
 

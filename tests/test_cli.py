@@ -193,3 +193,10 @@ def test_eddies_flag_prints_the_split(demo, tmp_path):
     r = cli("run", demo / "demo_levels.nc", "--region", demo / "basin.geojson", "--out", tmp_path / "e.csv", "--eddies")
     assert r.returncode == 0, r.stderr
     assert "transient eddies" in r.stdout and "mean flow" in r.stdout
+
+
+def test_a_file_that_is_not_netcdf(tmp_path):
+    bad = tmp_path / "notes.nc"
+    bad.write_text("not a netcdf file\n")
+    msg = _bad(tmp_path, "run", bad, "--bbox", "0,40,10,50")
+    assert "notes.nc" in msg and "not NetCDF" in msg and "xarray" not in msg
