@@ -8,11 +8,11 @@ from __future__ import annotations
 
 import argparse
 import os
-import shutil
 import sys
 import time
 from pathlib import Path
 
+from app import runfiles
 from budget import __version__
 from budget.errors import FluxfenceError, RequestError
 
@@ -55,11 +55,6 @@ class _Progress:
             sys.stderr.write("\n")
 
 
-def _partial_dir(out: Path) -> Path:
-    """Where finished time blocks wait until the run completes (resume after Ctrl-C)."""
-    return out.with_name(out.name + ".partial")
-
-
 def _closure_options(args) -> dict:
     """compute() keywords for closing the budget (budget.closure)."""
     return {
@@ -93,10 +88,8 @@ def _summary(ds) -> str:
 
 
 def cmd_run(args) -> int:
-    from budget.export import write
-    from budget.fields import open_fields
-    from budget.ledger import compute
-    from budget.region import load_region
+    from budget.export import NETCDF_SUFFIXES, SUFFIXES
+    from budget.outputs import Outputs
 
     if not args.region and not args.bbox:
         raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
@@ -104,23 +97,12 @@ def cmd_run(args) -> int:
         raise RequestError("Give either --region or --bbox, not both.")
     if args.each_feature:
         return _run_each_feature(args)
-    out = Path(args.out)
-    if out.exists() and not args.overwrite:
-        raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
-    region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
-    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
-    for w in list(fields.warnings) + list(region.warnings):
-        print(f"warning: {w}", file=sys.stderr)
-    ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet),
-                 scheduler=args.scheduler, resume=_partial_dir(out), **_closure_options(args))
-    import json
-
-    for w in json.loads(ds.attrs.get("warnings", "[]")):
-        if w not in fields.warnings:
-            print(f"warning: {w}", file=sys.stderr)
-    write(ds, out)
-    if args.netcdf:
-        write(ds, args.netcdf)
+    # every output is planned and checked before anything is computed (budget.outputs)
+    plan = Outputs(inputs=runfiles.inputs_of(args), overwrite=args.overwrite)
+    out = plan.file(args.out, "--out", SUFFIXES)
+    nc = plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES) if args.netcdf else None
+    partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
+    ds, fields, region = _compute_and_write(args, plan, partial, [out, nc])
     if not args.quiet:
         print(_summary(ds))
     if args.eddies:
@@ -132,9 +114,52 @@ def cmd_run(args) -> int:
         for label, value in zip(("total", "mean flow", "transient eddies"), conv):
             print(f"  {label:<20}{value:>14.4g} mm/day")
     if not args.quiet:
-        print(f"wrote {out}" + (f" and {args.netcdf}" if args.netcdf else ""))
+        print(f"wrote {out}" + (f" and {nc}" if nc else ""))
         print(CAUTION)
     return 0
+
+
+def _compute_and_write(args, plan, partial, targets):
+    """One budget, its outputs staged and committed together; the resume folder goes last."""
+    import json
+
+    from budget.export import encode
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import load_region
+
+    region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
+    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    for w in list(fields.warnings) + list(region.warnings):
+        print(f"warning: {w}", file=sys.stderr)
+    with plan:
+        ds = _compute(args, fields, region, partial)
+        for w in json.loads(ds.attrs.get("warnings", "[]")):
+            if w not in fields.warnings:
+                print(f"warning: {w}", file=sys.stderr)
+        try:
+            runfiles.hold("computed")
+            for k, target in enumerate(t for t in targets if t is not None):
+                if k:
+                    runfiles.hold("staged")
+                plan.stage(target, encode(ds, target))
+            plan.commit()
+        except KeyboardInterrupt:
+            raise runfiles.WriteInterrupted(partial) from None
+    runfiles.discard(partial)
+    return ds, fields, region
+
+
+def _compute(args, fields, region, partial, **extra):
+    """compute() keeping the resume folder (removed once the outputs are in place)."""
+    from budget.errors import ResumeMismatch
+    from budget.ledger import compute
+
+    try:
+        return compute(fields, region, method=args.method, progress=_Progress(not args.quiet), scheduler=args.scheduler,
+                       resume=partial, keep_resume=True, **extra, **_closure_options(args))
+    except ResumeMismatch as exc:
+        raise RequestError(runfiles.mismatch_message(exc)) from None
 
 
 def _slug(name: str) -> str:
@@ -148,9 +173,9 @@ def _run_each_feature(args) -> int:
     import pandas as pd
 
     from budget import terms
-    from budget.export import to_frame, write, write_frame
+    from budget.export import encode, frame_csv_text, to_frame
     from budget.fields import open_fields
-    from budget.ledger import compute
+    from budget.outputs import Outputs
     from budget.region import list_features, load_region
     from budget.stencil import Grid, compile_stencil
 
@@ -158,12 +183,16 @@ def _run_each_feature(args) -> int:
         raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
     if args.feature:
         raise RequestError("Give either --each-feature or --feature, not both.")
-    folder = Path(args.out)
-    if folder.suffix.lower() in (".csv", ".nc"):
-        raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(folder)!r}.")
+    if args.netcdf:
+        raise RequestError("--netcdf writes one file; with --each-feature each region gets its CSV in the --out folder.")
+    if Path(args.out).suffix.lower() in (".csv", ".nc"):
+        raise RequestError(f"With --each-feature, --out names a folder, not a file like {args.out!r}.")
+    plan = Outputs(inputs=runfiles.inputs_of(args), overwrite=args.overwrite)
+    folder = plan.folder(args.out, "--out")
+    resume_root = Path(args.resume_dir) if args.resume_dir else folder
     fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
     grid = Grid.from_fields(fields)
-    # check every region before computing any, so a bad feature costs nothing
+    # check every region and every output before computing any, so a bad feature costs nothing
     jobs = []
     for feat in list_features(args.region):
         label = feat.get("name") or f"feature {feat['index']}"
@@ -172,30 +201,36 @@ def _run_each_feature(args) -> int:
             stencil = compile_stencil(region, grid)
         except FluxfenceError as exc:
             raise type(exc)(f"Feature {feat['index']} ({label}): {exc}") from None
-        target = folder / f"{feat['index']:03d}_{_slug(label)}.csv"
-        if target.exists() and not args.overwrite:
-            raise RequestError(f"{str(target)!r} exists already; choose another --out folder or pass --overwrite.")
+        target = plan.file(folder / f"{feat['index']:03d}_{_slug(label)}.csv", "--out")
         jobs.append((label, region, stencil, target))
-    folder.mkdir(parents=True, exist_ok=True)
-    summary_path = folder / "summary.csv"
-    if summary_path.exists() and not args.overwrite:
-        raise RequestError(f"{str(summary_path)!r} exists already; choose another --out folder or pass --overwrite.")
+    summary_path = plan.file(folder / "summary.csv", "--out")
+    partials = []
     rows = []
-    for k, (label, region, stencil, target) in enumerate(jobs, 1):
-        if not args.quiet:
-            print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
-        ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet),
-                     scheduler=args.scheduler, resume=_partial_dir(target), **_closure_options(args))
-        write(ds, target)
-        df = to_frame(ds)
-        row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
-               "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
-        for col, _ in terms.summary_columns():
-            if col.name in df:
-                row[f"mean_{col.name}"] = df[col.name].mean()
-        row["mass_correction"] = ds.attrs.get("mass_correction", "")
-        rows.append(row)
-    write_frame(pd.DataFrame(rows), summary_path)
+    with plan:
+        plan.make_folders()
+        for k, (label, region, stencil, target) in enumerate(jobs, 1):
+            if not args.quiet:
+                print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
+            partial = runfiles.resume_folder(args, runfiles.default_resume(resume_root / target.name), plan)
+            partials.append(partial)
+            ds = _compute(args, fields, region, partial, stencil=stencil)
+            plan.stage(target, encode(ds, target))
+            df = to_frame(ds)
+            row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
+                   "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
+            for col, _ in terms.summary_columns():
+                if col.name in df:
+                    row[f"mean_{col.name}"] = df[col.name].mean()
+            row["mass_correction"] = ds.attrs.get("mass_correction", "")
+            rows.append(row)
+        try:
+            runfiles.hold("computed")
+            plan.stage(summary_path, frame_csv_text(pd.DataFrame(rows)))
+            plan.commit()
+        except KeyboardInterrupt:
+            raise runfiles.WriteInterrupted(resume_root) from None
+    for partial in partials:
+        runfiles.discard(partial)
     if not args.quiet:
         pme = f"mean_{terms.term('p_minus_e').columns[0].name}"
         print(pd.DataFrame(rows)[["region", "area_km2"] + [c for c in (pme,) if c in rows[0]]].to_string(index=False))
@@ -205,19 +240,20 @@ def _run_each_feature(args) -> int:
 
 
 def cmd_sample(args) -> int:
+    from budget.outputs import Outputs
     from sample_fields import ensure_sample
 
     out = Path(args.out)
-    out.mkdir(parents=True, exist_ok=True)
+    plan = Outputs(overwrite=args.overwrite)
+    plan.folder(out, "--out")
     paths = ensure_sample()
-    written = []
-    for p in (paths.levels, paths.column, paths.basin):
-        target = out / Path(p).name
-        if target.exists() and not args.overwrite:
-            raise RequestError(f"{str(target)!r} exists already; choose another --out or pass --overwrite.")
-        written.append(target)
-    for p, target in zip((paths.levels, paths.column, paths.basin), written):
-        shutil.copyfile(p, target)
+    sources = (paths.levels, paths.column, paths.basin)
+    written = [plan.file(out / Path(p).name, "--out") for p in sources]
+    with plan:
+        plan.make_folders()
+        for p, target in zip(sources, written):
+            plan.stage(target, Path(p).read_bytes())
+        plan.commit()
     print("Invented demonstration scenario (not real weather):")
     for t in written:
         print(f"  {t}")
@@ -252,7 +288,9 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")
     r.add_argument("--netcdf", help="also write the full budget as NetCDF here")
-    r.add_argument("--overwrite", action="store_true", help="replace an existing output file")
+    r.add_argument("--overwrite", action="store_true", help="replace an existing output file (never an input)")
+    r.add_argument("--resume-dir", metavar="DIR", help="keep finished time steps here until the outputs are written (default: OUT.partial beside --out)")
+    r.add_argument("--restart", action="store_true", help="discard finished steps left in the resume folder by an earlier run")
     r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     r.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="run on this dask.distributed cluster (default: local threads)")
     r.add_argument("--no-mass-correction", action="store_true", help="do not apply the barotropic dry-air mass correction (on by default for level inputs; its effect is still reported)")
@@ -279,16 +317,17 @@ def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
-        return args.func(args)
+        if args.command == "serve":  # the server handles its own signals
+            return args.func(args)
+        with runfiles.sigterm_as_interrupt():
+            return args.func(args)
     except FluxfenceError as exc:
         print(f"fluxfence: {exc}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt as exc:
-        from budget.stream import Interrupted
-
-        msg = exc.message() if isinstance(exc, Interrupted) else "interrupted; no output was written."
+        msg = exc.message() if hasattr(exc, "message") else "interrupted; no output was written."
         print(f"fluxfence: {msg}", file=sys.stderr)
-        return 130
+        return runfiles.stop_status()
     except Exception as exc:  # a bug, not a user error: say so in one line
         if os.environ.get("FLUXFENCE_DEBUG"):
             raise

@@ -28,3 +28,11 @@ class RequestError(FluxfenceError):
     """The request itself: options, time window, output paths, method names."""
 
     exit_code = 5
+
+
+class ResumeMismatch(RequestError):
+    """A resume folder holds the finished steps of another run; ``path`` names the folder."""
+
+    def __init__(self, message: str, path=None):
+        super().__init__(message)
+        self.path = path

@@ -1,13 +1,12 @@
 """CSV and NetCDF writers for a budget Dataset.
 
-Writes go to a temporary file beside the target and are renamed into place only when
-complete, so an existing output is never left half-written.
+Columns, units and CF names come from the term catalogue (budget/terms.py). Files are written
+by budget.outputs: a temporary file beside the target, renamed into place only when complete,
+so an existing output is never left half-written.
 """
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -16,6 +15,7 @@ import xarray as xr
 
 from . import terms
 from .errors import RequestError
+from .outputs import atomic_write
 
 #: CSV columns after `time`: (column name, Dataset variable, display unit), read from the term
 #: catalogue (budget/terms.py); a variable missing from the Dataset is skipped.
@@ -33,6 +33,7 @@ def to_frame(ds: xr.Dataset) -> pd.DataFrame:
 
 
 def to_csv_text(ds: xr.Dataset) -> str:
+    """The budget series as CSV text."""
     return to_frame(ds).to_csv(index=False, float_format="%.6g", lineterminator="\n")
 
 
@@ -49,53 +50,47 @@ def _netcdf_ready(ds: xr.Dataset) -> xr.Dataset:
     return out
 
 
+#: Output formats by file-name ending.
+CSV_SUFFIXES = (".csv",)
+NETCDF_SUFFIXES = (".nc", ".nc4", ".netcdf")
+SUFFIXES = CSV_SUFFIXES + NETCDF_SUFFIXES
+
+
 def to_netcdf_bytes(ds: xr.Dataset) -> bytes:
-    with tempfile.TemporaryDirectory() as d:
-        p = Path(d) / "budget.nc"
-        _netcdf_ready(ds).to_netcdf(p, engine="h5netcdf")
-        return p.read_bytes()
+    """The budget as NetCDF-4 bytes, built in memory (a full disk never meets the HDF5 writer)."""
+    return bytes(_netcdf_ready(ds).to_netcdf(engine="h5netcdf"))
 
 
-def _atomic_write(path, write) -> Path:
-    path = Path(path)
-    parent = path.parent if str(path.parent) else Path(".")
-    if not parent.is_dir():
-        raise RequestError(f"The output folder {str(parent)!r} does not exist; create it or choose another --out path.")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=parent)
-    os.close(fd)
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-    return path
-
-
-def write_csv(ds: xr.Dataset, path) -> Path:
-    text = to_csv_text(ds)
-    return _atomic_write(path, lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
-
-
-def write_netcdf(ds: xr.Dataset, path) -> Path:
-    ready = _netcdf_ready(ds)
-    return _atomic_write(path, lambda tmp: ready.to_netcdf(tmp, engine="h5netcdf"))
-
-
-def write(ds: xr.Dataset, path) -> Path:
-    """Write by extension: .csv or .nc."""
+def encode(ds: xr.Dataset, path) -> bytes:
+    """The bytes of the output `path` by its ending: .csv or .nc."""
     suffix = Path(path).suffix.lower()
-    if suffix == ".csv":
-        return write_csv(ds, path)
-    if suffix in (".nc", ".nc4", ".netcdf"):
-        return write_netcdf(ds, path)
+    if suffix in CSV_SUFFIXES:
+        return to_csv_text(ds).encode("utf-8")
+    if suffix in NETCDF_SUFFIXES:
+        return to_netcdf_bytes(ds)
     raise RequestError(f"Cannot tell the output format of {str(path)!r}; end the name in .csv or .nc.")
 
 
-def write_frame(df: pd.DataFrame, path) -> Path:
-    """Any table (for example a batch summary) as CSV, written atomically."""
-    text = df.to_csv(index=False, float_format="%.6g", lineterminator="\n")
-    return _atomic_write(path, lambda tmp: Path(tmp).write_text(text, encoding="utf-8"))
+def write_csv(ds: xr.Dataset, path, overwrite: bool = True) -> Path:
+    """The budget series as CSV, written atomically (budget.outputs)."""
+    return atomic_write(path, to_csv_text(ds), overwrite=overwrite)
+
+
+def write_netcdf(ds: xr.Dataset, path, overwrite: bool = True) -> Path:
+    """The full budget as NetCDF-4, written atomically (budget.outputs)."""
+    return atomic_write(path, to_netcdf_bytes(ds), overwrite=overwrite)
+
+
+def write(ds: xr.Dataset, path, overwrite: bool = True) -> Path:
+    """Write by extension: .csv or .nc."""
+    return atomic_write(path, encode(ds, path), overwrite=overwrite)
+
+
+def frame_csv_text(df: pd.DataFrame) -> str:
+    """Any table (for example a batch summary) as CSV text."""
+    return df.to_csv(index=False, float_format="%.6g", lineterminator="\n")
+
+
+def write_frame(df: pd.DataFrame, path, overwrite: bool = True) -> Path:
+    """Any table as CSV, written atomically."""
+    return atomic_write(path, frame_csv_text(df), overwrite=overwrite)

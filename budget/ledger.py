@@ -287,6 +287,7 @@ def compute(
     stencil: Stencil | None = None,
     scheduler=None,
     resume=None,
+    keep_resume: bool = False,
     mass_correction: bool | None = None,
     accumulation_period=None,
     accumulation_reset=None,
@@ -301,7 +302,8 @@ def compute(
     ``scheduler``: None (dask's local threads), "sync", or a dask.distributed address
     ("tcp://HOST:PORT") or Client to run the time blocks on a cluster (budget.stream).
     ``resume``: a folder where finished time blocks are kept; after an interruption the same
-    call with the same folder computes only the rest; the folder is removed when done.
+    call with the same folder computes only the rest; the folder is removed when done, unless
+    ``keep_resume`` (the caller removes it once its outputs are written).
 
     ``mass_correction`` applies the barotropic dry-air mass correction (budget.mass): on by
     default for level inputs, off (unavailable) for column inputs; the uncorrected terms stay in
@@ -324,7 +326,8 @@ def compute(
     offset = int(np.searchsorted(fields.ds["time"].values, times[0])) if nt else 0
     func = partial(_block, fields, st, fields.ds, profiles=profiles)
     key = _job_key(func, st, ds, region, chunk) if resume is not None else ""
-    blocks = run_blocks(_Shifted(func, offset), nt, chunk, progress=progress, scheduler=scheduler, store=resume, key=key)
+    blocks = run_blocks(_Shifted(func, offset), nt, chunk, progress=progress, scheduler=scheduler, store=resume, key=key,
+                        keep_store=keep_resume)
     res = {k: np.concatenate([b[k] for b in blocks], axis=0) for k in blocks[0]}
     out = {k: res[k] for k in ("w", "imp", "inflow", "outflow", "adiv")}
     edge = res["edge"]

@@ -35,7 +35,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import RequestError
+from .errors import RequestError, ResumeMismatch
 
 __all__ = ["run_blocks", "Interrupted", "BlockStore", "is_cluster"]
 
@@ -70,9 +70,10 @@ class BlockStore:
             except (OSError, ValueError):
                 old = {}
             if old.get("format") != _STORE_FORMAT or old.get("key") != self.key:
-                raise RequestError(
+                raise ResumeMismatch(
                     f"The folder {str(self.path)!r} holds finished steps of a different run (other "
-                    "fields, region, window or options); delete it or give another folder to resume into."
+                    "fields, region, window or options); delete it or give another folder to resume into.",
+                    self.path,
                 )
         else:
             try:

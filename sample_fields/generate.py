@@ -24,7 +24,6 @@ from __future__ import annotations
 import json
 import os
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -32,6 +31,7 @@ import numpy as np
 import xarray as xr
 
 from budget.errors import RequestError
+from budget.outputs import atomic_write
 
 from . import truth as T
 
@@ -175,20 +175,6 @@ def _encoding(ds: xr.Dataset) -> dict:
     return enc
 
 
-def _atomic_write(target: Path, write) -> None:
-    fd, tmp = tempfile.mkstemp(prefix=target.name + ".", suffix=".tmp", dir=target.parent)
-    os.close(fd)
-    try:
-        write(Path(tmp))
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes the file private; give it the usual mode
-        os.replace(tmp, target)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-
-
 def write_sample(out_dir, overwrite: bool = False) -> SamplePaths:
     """Write the three demo files into ``out_dir`` (created if missing) and return their paths.
 
@@ -205,9 +191,8 @@ def write_sample(out_dir, overwrite: bool = False) -> SamplePaths:
     try:
         out.mkdir(parents=True, exist_ok=True)
         for ds, path in ((build_levels(), paths.levels), (build_column(), paths.column)):
-            _atomic_write(path, lambda tmp, ds=ds: ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds)))
-        text = _geojson_text(basin_geojson())
-        _atomic_write(paths.basin, lambda tmp: tmp.write_text(text, encoding="utf-8"))
+            atomic_write(path, lambda tmp, ds=ds: ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds)))
+        atomic_write(paths.basin, _geojson_text(basin_geojson()))
     except PermissionError as exc:
         raise RequestError(f"Cannot write the demo files into {out} ({exc.strerror}); choose a directory you can write to.") from None
     return paths
