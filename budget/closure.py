@@ -46,7 +46,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import xarray as xr
 
-from . import mass, observed
+from . import mass, observed, terms
 from .constants import SECONDS_PER_DAY
 from .errors import RequestError
 from .options import ClosureOptions
@@ -212,8 +212,9 @@ class Closed:
     correction: CorrectionState
 
 
-def _var(data, units, long_name, **attrs):
-    return xr.Variable(("time",), np.asarray(data, float), {"units": units, "long_name": long_name, **attrs})
+def _var(name, data, method=None, **extra):
+    """A time series with its attributes from the term catalogue (budget.terms) and ``extra``."""
+    return xr.Variable(("time",), np.asarray(data, float), {**terms.attrs(name, method), **extra})
 
 
 def _mean(x):
@@ -286,16 +287,15 @@ def _dry_air(out: Closed, st, times, sums, method, summary):
     if not np.any(mu_len > 0):
         out.warnings.append("The region has no open boundary (it covers the whole globe), so the mass correction is zero.")
     state = out.correction.sentence
-    note = "c = (dry-air import - A dmu/dt) / (boundary integral of mu dl); Delta(Q.n) = W c (Trenberth 1991)"
     pressure = mass.residual_as_pressure_tendency(resid)
     out.variables.update({
-        "dry_air_mass": _var(mu, "kg m-2", "area-mean dry-air column mass", method_detail="(1/g) sum (1-q) dp over the layers above ground, top level to surface"),
-        "dry_air_tendency": _var(dtend, "kg m-2 s-1", "tendency of area-mean dry-air column mass", method_detail="centred differences in time, one-sided at the ends"),
-        "dry_air_import": _var(sums.dimp, "kg s-1", "net dry-air mass import through the boundary"),
-        "dry_air_convergence": _var(dconv, "kg m-2 s-1", "area-mean dry-air mass convergence", method_detail=f"{method} method, files' winds"),
-        "dry_air_residual": _var(resid, "kg m-2 s-1", "dry-air budget residual (tendency minus convergence)", method_detail="zero for mass-consistent winds; before any correction"),
-        "dry_air_residual_pressure": _var(pressure, "hPa day-1", "dry-air budget residual as a surface-pressure tendency", method_detail="residual x g x 86400 / 100"),
-        "mass_correction_speed": _var(c, "m s-1", "barotropic mass-correction speed, outward normal to the boundary", method_detail=note, correction=state),
+        "dry_air_mass": _var("dry_air_mass", mu),
+        "dry_air_tendency": _var("dry_air_tendency", dtend),
+        "dry_air_import": _var("dry_air_import", sums.dimp),
+        "dry_air_convergence": _var("dry_air_convergence", dconv, method=f"{method} method, files' winds"),
+        "dry_air_residual": _var("dry_air_residual", resid),
+        "dry_air_residual_pressure": _var("dry_air_residual_pressure", pressure),
+        "mass_correction_speed": _var("mass_correction_speed", c, correction=state),
     })
     summary.update({
         "mean_dry_air_residual_kg_m2_s": _mean(resid),
@@ -324,10 +324,10 @@ def _correct(out: Closed, st, sums, speeds, method, summary) -> None:
         )
     state = out.correction.sentence
     out.variables.update({
-        "mass_correction_convergence": _var(dconv_v, "kg m-2 s-1", "change of vapour convergence and of P - E by the mass correction", method_detail="-c x (boundary integral of W dl) / area", correction=state),
-        "vapour_import_uncorrected": _var(v.imp, "kg s-1", "net water-vapour import from the files' winds (no mass correction)"),
-        "vapour_convergence_uncorrected": _var(v.conv, "kg m-2 s-1", "area-mean vapour-flux convergence from the files' winds (no mass correction)", method_detail=f"{method} method"),
-        "p_minus_e_uncorrected": _var(pme_u, "kg m-2 s-1", "P - E from the files' winds (no mass correction)"),
+        "mass_correction_convergence": _var("mass_correction_convergence", dconv_v, correction=state),
+        "vapour_import_uncorrected": _var("vapour_import_uncorrected", v.imp),
+        "vapour_convergence_uncorrected": _var("vapour_convergence_uncorrected", v.conv, method=f"{method} method"),
+        "p_minus_e_uncorrected": _var("p_minus_e_uncorrected", pme_u),
     })
     summary.update({
         "mean_p_minus_e_mm_day": _mean(out.vapour.pme) * SECONDS_PER_DAY,
@@ -348,14 +348,14 @@ def _total_water(out: Closed, fields, st, times, sums, speeds, method, summary) 
     used = ", ".join(f"{r}={cond.get(r, r)}" for r in (*LEVEL_CONDENSATE, *COLUMN_TOTAL, *COLUMN_CONDENSATE) if r in fields.ds)
     state = out.correction.sentence if speeds is not None else "none"
     out.variables.update({
-        "total_water_content": _var(sums.tw, "kg m-2", "area-mean total water column (vapour + cloud liquid + cloud ice)", variables_used=used),
-        "total_water_tendency": _var(ttend, "kg m-2 s-1", "tendency of area-mean total water column"),
-        "total_water_import": _var(timp, "kg s-1", "net total-water import through the boundary", correction=state),
-        "total_water_convergence": _var(tconv, "kg m-2 s-1", "area-mean total-water flux convergence", method_detail=f"{method} method", correction=state),
-        "p_minus_e_total_water": _var(tconv - ttend, "kg m-2 s-1", "P - E from the total-water budget (convergence minus tendency)"),
+        "total_water_content": _var("total_water_content", sums.tw, variables_used=used),
+        "total_water_tendency": _var("total_water_tendency", ttend),
+        "total_water_import": _var("total_water_import", timp, correction=state),
+        "total_water_convergence": _var("total_water_convergence", tconv, method=f"{method} method", correction=state),
+        "p_minus_e_total_water": _var("p_minus_e_total_water", tconv - ttend),
     })
     if speeds is not None:
-        out.variables["p_minus_e_total_water_uncorrected"] = _var(tconv_u - ttend, "kg m-2 s-1", "P - E from the total-water budget, files' winds (no mass correction)")
+        out.variables["p_minus_e_total_water_uncorrected"] = _var("p_minus_e_total_water_uncorrected", tconv_u - ttend)
     summary["mean_p_minus_e_total_water_mm_day"] = _mean(tconv - ttend) * SECONDS_PER_DAY
 
 
@@ -364,8 +364,7 @@ def _observed(out: Closed, fields, times, sums, opts: ClosureOptions, summary) -
     rates = {}
     extra_roles = getattr(fields, "extra_roles", {})
     where = f"'{fields.files[0]}'" if getattr(fields, "files", None) else "the input"
-    for role, name, long in (("precip", "precipitation", "area-mean precipitation from the files"),
-                             ("evap", "evaporation", "area-mean evaporation from the files, positive upward")):
+    for role, name in (("precip", "precipitation"), ("evap", "evaporation")):
         raw = getattr(sums, f"{role}_raw")
         if raw is None:
             continue
@@ -383,12 +382,12 @@ def _observed(out: Closed, fields, times, sums, opts: ClosureOptions, summary) -
                 f"{int(np.sum(~np.isfinite(raw)))} of {times.size} times; its area mean is blank there."
             )
         rates[role] = r
-        out.variables[name] = _var(r, "kg m-2 s-1", long, **{k: str(v) for k, v in info.items()})
+        out.variables[name] = _var(name, r, **{k: str(v) for k, v in info.items()})
         summary[f"mean_{name}_mm_day"] = _mean(r) * SECONDS_PER_DAY
     if "precip" in rates and "evap" in rates:
         pe = rates["precip"] - rates["evap"]
         pme = out.vapour.pme
-        out.variables["p_minus_e_observed"] = _var(pe, "kg m-2 s-1", "precipitation minus evaporation from the files")
-        out.variables["closure_residual"] = _var(pe - pme, "kg m-2 s-1", "closure residual: P - E from the files minus P - E from the budget", method_detail="(precipitation - evaporation) - (vapour convergence - dW/dt)", correction=out.correction.sentence)
+        out.variables["p_minus_e_observed"] = _var("p_minus_e_observed", pe)
+        out.variables["closure_residual"] = _var("closure_residual", pe - pme, correction=out.correction.sentence)
         summary["mean_closure_residual_mm_day"] = _mean(pe - pme) * SECONDS_PER_DAY
         summary["mean_abs_closure_residual_mm_day"] = _mean(np.abs(pe - pme)) * SECONDS_PER_DAY

@@ -20,7 +20,7 @@ from functools import partial
 import numpy as np
 import xarray as xr
 
-from . import __version__, closure, plausible
+from . import __version__, closure, plausible, terms
 from .blocks import BlockSums, Cells, Gatherer, Shifted, block_steps
 from .constants import STANDARD_GRAVITY
 from .errors import RequestError
@@ -150,7 +150,7 @@ def vapour_terms(sums: BlockSums, times, area: float, method: str) -> closure.Va
 
 
 def _legacy_options(method, start, end, profiles, mass_correction, accumulation_period, accumulation_reset,
-                    evaporation_positive, progress, stencil, scheduler, resume, options, run):
+                    evaporation_positive, progress, stencil, scheduler, resume, keep_resume, options, run):
     """(BudgetOptions, RunOptions) from compute's keyword arguments or the option values."""
     if options is None:
         options = BudgetOptions(
@@ -161,8 +161,8 @@ def _legacy_options(method, start, end, profiles, mass_correction, accumulation_
             "boundary", None, None, False, None, None, None, None):
         raise RequestError("Give the budget's options either as options=BudgetOptions(...) or as keywords, not both.")
     if run is None:
-        run = RunOptions(scheduler=scheduler, resume=resume, progress=progress, stencil=stencil)
-    elif (progress, stencil, scheduler, resume) != (None, None, None, None):
+        run = RunOptions(scheduler=scheduler, resume=resume, keep_resume=keep_resume, progress=progress, stencil=stencil)
+    elif (progress, stencil, scheduler, resume, keep_resume) != (None, None, None, None, False):
         raise RequestError("Give the run's options either as run=RunOptions(...) or as keywords, not both.")
     return options, run
 
@@ -178,6 +178,7 @@ def compute(
     stencil: Stencil | None = None,
     scheduler=None,
     resume=None,
+    keep_resume: bool = False,
     mass_correction=None,
     accumulation_period=None,
     accumulation_reset=None,
@@ -195,7 +196,7 @@ def compute(
     """
     options, run = _legacy_options(method, start, end, profiles, mass_correction, accumulation_period,
                                    accumulation_reset, evaporation_positive, progress, stencil, scheduler,
-                                   resume, options, run)
+                                   resume, keep_resume, options, run)
     if options.method not in METHODS:
         raise RequestError(f"Unknown method {options.method!r}; choose 'boundary' or 'area'.")
     fields = as_fields(fields)
@@ -209,35 +210,32 @@ def compute(
     func = partial(_block, fields, st, fields.ds, profiles=options.profiles)
     key = _job_key(func, st, ds, region, chunk) if run.resume is not None else ""
     parts = run_blocks(Shifted(func, window_offset(fields.ds["time"].values, times)), nt, chunk,
-                       progress=run.progress, scheduler=run.scheduler, store=run.resume, key=key)
+                       progress=run.progress, scheduler=run.scheduler, store=run.resume, key=key,
+                       keep_store=run.keep_resume)
     sums = BlockSums.concat(parts)
     vap = vapour_terms(sums, times, float(st.area), options.method)
     closed = closure.close(fields, st, times, sums, vap, options.method, options.closure)
     return _assemble(fields, region, st, times, sums, closed, options, ds)
 
 
-def _conv_note(method: str) -> str:
-    return {
-        "boundary": "outward flux through the densified boundary, Q bilinearly interpolated to piece midpoints",
-        "area": "cover-weighted area mean of the centred-difference divergence on the sphere",
-    }[method]
-
-
 def _vapour_variables(sums: BlockSums, v: closure.VapourTerms, method: str) -> dict:
-    def var(data, units, long_name, dims=("time",), **extra):
-        return xr.Variable(dims, data, {"units": units, "long_name": long_name, **extra})
+    """The vapour terms, their attributes from the term catalogue (budget.terms)."""
+    conv = terms.term(f"{method}_convergence").method  # the primary estimate's method text
+
+    def var(name, data, dims=("time",), method=None):
+        return xr.Variable(dims, data, terms.attrs(name, method))
 
     return {
-        "precipitable_water": var(sums.w, "kg m-2", "area-mean precipitable water", method_detail="cover-weighted mean of W; 1 kg m-2 = 1 mm"),
-        "pw_tendency": var(v.tend, "kg m-2 s-1", "tendency of area-mean precipitable water", method_detail="centred differences in time, one-sided at the ends"),
-        "vapour_import": var(v.imp, "kg s-1", "net water-vapour import through the boundary", method_detail=_conv_note("boundary")),
-        "inflow": var(sums.inflow, "kg s-1", "water-vapour inflow through the boundary (pieces with inward flux)"),
-        "outflow": var(sums.outflow, "kg s-1", "water-vapour outflow through the boundary (pieces with outward flux)"),
-        "boundary_convergence": var(v.bconv, "kg m-2 s-1", "area-mean vapour-flux convergence, boundary method", method_detail=_conv_note("boundary")),
-        "area_convergence": var(v.aconv, "kg m-2 s-1", "area-mean vapour-flux convergence, area method", method_detail=_conv_note("area")),
-        "vapour_convergence": var(v.conv, "kg m-2 s-1", "area-mean vapour-flux convergence", method_detail=f"{method} method: {_conv_note(method)}"),
-        "p_minus_e": var(v.pme, "kg m-2 s-1", "precipitation minus evaporation (convergence minus tendency)", method_detail="P - E = -div(Q) - dW/dt"),
-        "edge_import": var(v.edge, "kg s-1", "water-vapour import through each edge", dims=("time", "edge")),
+        "precipitable_water": var("precipitable_water", sums.w),
+        "pw_tendency": var("pw_tendency", v.tend),
+        "vapour_import": var("vapour_import", v.imp),
+        "inflow": var("inflow", sums.inflow),
+        "outflow": var("outflow", sums.outflow),
+        "boundary_convergence": var("boundary_convergence", v.bconv),
+        "area_convergence": var("area_convergence", v.aconv),
+        "vapour_convergence": var("vapour_convergence", v.conv, method=f"{method} method: {conv}"),
+        "p_minus_e": var("p_minus_e", v.pme),
+        "edge_import": var("edge_import", v.edge, dims=("time", "edge")),
     }
 
 
@@ -247,8 +245,7 @@ def _profile_variables(sums: BlockSums, st: Stencil, ds, dv: dict, coords: dict)
         return
     bnd = st.boundary
     cum = np.concatenate([[0.0], np.cumsum(bnd.lengths())])
-    attrs = {"units": "kg m-1 s-1", "long_name": "water-vapour import per unit boundary length"}
-    dv["boundary_import_density"] = xr.Variable(("time", "piece"), sums.density, attrs)
+    dv["boundary_import_density"] = xr.Variable(("time", "piece"), sums.density, terms.attrs("boundary_import_density"))
     coords["piece_distance"] = ("piece", 0.5 * (cum[:-1] + cum[1:]), {"units": "m", "long_name": "distance along the boundary"})
     coords["piece_lon"] = ("piece", bnd.mid_lon, {"units": "degrees_east"})
     coords["piece_lat"] = ("piece", bnd.mid_lat, {"units": "degrees_north"})
@@ -256,8 +253,8 @@ def _profile_variables(sums: BlockSums, st: Stencil, ds, dv: dict, coords: dict)
     coords["vertex_distance"] = ("vertex", cum[bnd.vertex_piece], {"units": "m", "long_name": "distance of each vertex along the boundary"})
     if sums.curtain is not None:
         dims = ("time", "level", "piece")
-        dv["normal_flux_density"] = xr.Variable(dims, sums.curtain, {"units": "kg m-1 s-1 Pa-1", "long_name": "import per unit boundary length per unit pressure"})
-        dv["layer_thickness"] = xr.Variable(dims, sums.curtain_dp, {"units": "Pa", "long_name": "layer thickness above ground at each boundary piece"})
+        dv["normal_flux_density"] = xr.Variable(dims, sums.curtain, terms.attrs("normal_flux_density"))
+        dv["layer_thickness"] = xr.Variable(dims, sums.curtain_dp, terms.attrs("layer_thickness"))
         coords["level"] = ("level", ds["level"].values, dict(ds["level"].attrs))
 
 

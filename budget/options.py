@@ -78,11 +78,13 @@ class RunOptions:
     (budget.stream).  resume: a folder keeping finished time blocks (removed when complete).
     progress(done, total): called in the calling thread after each block.  stencil: a stencil
     compiled before for this region and grid (a cache).  block_steps: time steps per block
-    (None: sized by memory, budget.blocks).
+    (None: sized by memory, budget.blocks).  keep_resume: leave the resume folder in place
+    after a complete run (the caller removes it once its outputs are written).
     """
 
     scheduler: object = None
     resume: object = None
+    keep_resume: bool = False
     progress: Callable | None = None
     stencil: object = None
     block_steps: int | None = None

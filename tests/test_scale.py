@@ -2,7 +2,7 @@
 Ctrl-C safety and resume.
 
 Reference for the numbers: the divergence theorem on the sphere with the analytic fields of
-tests/analytic.py (Q = ∇χ + k×∇ψ, χ a sum of spherical harmonics, ∇²Y_l^m = −l(l+1)Y_l^m/a²;
+budget/testing.py (Q = ∇χ + k×∇ψ, χ a sum of spherical harmonics, ∇²Y_l^m = −l(l+1)Y_l^m/a²;
 CHECKS.md), so the net import of a polygon is −g(t)·∬∇²χ dA whatever the rotational part does.
 The cluster is a dask.distributed LocalCluster on the loopback address only. No timed
 assertions: memory is judged as a ratio, speed lives in benchmarks/.
@@ -27,7 +27,7 @@ from budget.ledger import compute
 from budget.region import region_from_vertices
 from budget.stencil import Grid, compile_stencil
 from budget.stream import Interrupted, run_blocks
-from tests import analytic
+from budget import testing as analytic
 
 # An invented polygon of our own (counter-clockwise), well inside the regional grid below.
 POLY = ([2.0, 14.0, 21.0, 17.5, 9.0, 4.5], [41.0, 38.5, 46.0, 52.0, 49.0, 53.5])
