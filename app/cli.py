@@ -125,7 +125,6 @@ def _compute_and_write(args, plan, partial, targets):
 
     from budget.export import encode
     from budget.fields import open_fields
-    from budget.ledger import compute
     from budget.region import load_region
 
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)

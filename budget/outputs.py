@@ -177,10 +177,11 @@ def _place(tmp: Path, target: Path, overwrite: bool) -> None:
     _unlink(tmp)
 
 
-def atomic_write(path, data, overwrite: bool = True) -> Path:
+def atomic_write(path, data, overwrite: bool = True, flag: str = "--out") -> Path:
     """Write `data` to `path` atomically; returns the path.
 
     `data`: bytes, text (UTF-8), or a function writing a file at the temporary path it is given.
+    `flag` names the option a user changes to write elsewhere (in the error sentences).
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
@@ -190,7 +191,7 @@ def atomic_write(path, data, overwrite: bool = True) -> Path:
         raise RequestError(f"{str(target)!r} is a folder; give a file name.")
     if target.exists() and not overwrite:
         raise RequestError(f"{str(target)!r} exists already; choose another path or pass --overwrite.")
-    tmp = _write_temp(target, data)
+    tmp = _write_temp(target, data, flag)
     try:
         _place(tmp, target, overwrite)
     except BaseException:

@@ -28,8 +28,8 @@ saying how many steps were done and where they are kept; nothing else is written
 
 from __future__ import annotations
 
+import io
 import json
-import os
 import shutil
 import uuid
 from pathlib import Path
@@ -38,6 +38,7 @@ import numpy as np
 
 from .blocks import BLOCK_FORMAT, BlockSums
 from .errors import RequestError, ResumeMismatch
+from .outputs import atomic_write
 
 __all__ = ["run_blocks", "Interrupted", "BlockStore", "is_cluster"]
 
@@ -91,7 +92,7 @@ class BlockStore:
                 raise RequestError(
                     f"The folder {str(self.path.parent)!r} does not exist; create it or write somewhere else."
                 ) from None
-            _atomic_write_text(man, json.dumps({"format": _STORE_FORMAT, "key": self.key}))
+            atomic_write(man, json.dumps({"format": _STORE_FORMAT, "key": self.key}), flag="--resume-dir")
 
     def _file(self, ts: slice) -> Path:
         return self.path / f"block_{ts.start:09d}_{ts.stop:09d}.npz"
@@ -108,20 +109,12 @@ class BlockStore:
         return BlockSums.from_arrays(arrays, where=f"The folder {str(self.path)!r}")
 
     def save(self, ts: slice, result: BlockSums) -> None:
-        f = self._file(ts)
-        tmp = f.with_name(f".{f.name}.{uuid.uuid4().hex}.tmp")
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **result.to_arrays())
-        os.replace(tmp, f)
+        buf = io.BytesIO()
+        np.savez(buf, **result.to_arrays())
+        atomic_write(self._file(ts), buf.getvalue(), flag="--resume-dir")
 
     def remove(self) -> None:
         shutil.rmtree(self.path, ignore_errors=True)
-
-
-def _atomic_write_text(path: Path, text: str) -> None:
-    tmp = path.with_name(f".{path.name}.{uuid.uuid4().hex}.tmp")
-    tmp.write_text(text)
-    os.replace(tmp, path)
 
 
 # -- schedulers ------------------------------------------------------------------------------
