@@ -13,6 +13,7 @@ import sys
 import time
 from pathlib import Path
 
+from app import cli_records
 from budget import __version__
 from budget.errors import FluxfenceError, RequestError
 
@@ -130,6 +131,7 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
+    tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
     fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
     for w in list(fields.warnings) + list(region.warnings):
@@ -141,9 +143,11 @@ def cmd_run(args) -> int:
     for w in json.loads(ds.attrs.get("warnings", "[]")):
         if w not in fields.warnings:
             print(f"warning: {w}", file=sys.stderr)
-    write(ds, out)
+    if "periods" not in tables:  # --aggregate puts the period table in --out
+        write(ds, out)
     if args.netcdf:
         write(ds, args.netcdf)
+    cli_records.write_tables(args, ds, tables)
     if not args.quiet:
         print(_summary(ds))
     if args.eddies:
@@ -176,6 +180,8 @@ def _run_each_feature(args) -> int:
     from budget.region import list_features, load_region
     from budget.stencil import Grid, compile_stencil
 
+    if cli_records.wanted(args):
+        raise RequestError("--aggregate, --climatology and --discharge work on one budget; leave out --each-feature.")
     if not args.region:
         raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
     if args.feature:
@@ -281,6 +287,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-period", metavar="DURATION", help="accumulated precipitation/evaporation restart every DURATION (1h: each value covers the step before it; 12h; none: never)")
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
+    cli_records.add_options(r)
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")
