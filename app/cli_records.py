@@ -22,10 +22,12 @@ def add_options(r) -> None:
     g.add_argument("--min-coverage", type=float, default=0.9, metavar="FRACTION", help="periods with less data than this are flagged and not averaged (default 0.9)")
     g.add_argument("--climatology", nargs="?", const="all", metavar="START,END",
                    help="also write the mean annual cycle by month and water-year statistics to OUT.climatology.csv (years START..END, default all)")
+    g.add_argument("--discharge", metavar="GAUGE.csv", help="compare long-term P - E with river discharge (m3/s) from this CSV by water year; writes OUT.discharge.csv")
+    g.add_argument("--discharge-column", metavar="NAME", help="the discharge column of --discharge when it has several")
 
 
 def wanted(args) -> bool:
-    return bool(args.aggregate or args.climatology or getattr(args, "discharge", None))
+    return bool(args.aggregate or args.climatology or args.discharge)
 
 
 def _years(text: str | None):
@@ -51,7 +53,7 @@ def targets(args, out: Path) -> dict:
     stem = out.with_suffix("")
     if args.climatology:
         paths["climatology"] = stem.with_name(stem.name + ".climatology.csv")
-    if getattr(args, "discharge", None):
+    if args.discharge:
         src = Path(args.discharge)
         if not src.is_file():
             raise RequestError(f"The gauge file {str(src)!r} does not exist; give a CSV of time and discharge in m3/s.")

@@ -193,7 +193,12 @@ def period_bounds(axis: TimeAxis, rule: PeriodRule, last_end: float) -> tuple[np
 
 
 def _integrals(a, b, values, edges):
-    """∫ over each [edges[k], edges[k+1]) of the step function (values on [a, b)) and the covered time."""
+    """∫ over each [edges[k], edges[k+1]) of the step function (values on [a, b)) and the
+    covered time; steps holding NaN cover no time."""
+    values = np.asarray(values, float)
+    ok = np.isfinite(values)
+    b = np.where(ok, b, a)
+    values = np.where(ok, values, 0.0)
     knots = np.empty(2 * a.size)
     knots[0::2], knots[1::2] = a, b
     area = np.zeros(2 * a.size)
@@ -206,7 +211,41 @@ def _integrals(a, b, values, edges):
     return np.diff(np.interp(e, knots, area)), np.diff(np.interp(e, knots, cov))
 
 
-def _region_views(ds: xr.Dataset):
+@dataclass
+class PeriodGrid:
+    """A record's steps as intervals and the periods covering it (INTEGRATION_RULE)."""
+
+    rule: PeriodRule
+    axis: TimeAxis
+    a: np.ndarray  # interval starts, s
+    b: np.ndarray  # interval ends, s
+    nominal: float  # median step, s
+    edges: np.ndarray  # period bounds, s (one more than periods)
+    labels: list
+
+    def integrate(self, values) -> tuple[np.ndarray, np.ndarray]:
+        """(integral over each period, covered seconds of each period) of a per-step series."""
+        return _integrals(self.a, self.b, values, self.edges)
+
+    def head(self) -> dict:
+        """The leading columns of a period table: period, start, end, steps."""
+        steps = np.diff(np.searchsorted(self.a, self.edges, side="left"))
+        return {"period": self.labels, "start": self.axis.iso(self.edges[:-1]), "end": self.axis.iso(self.edges[1:]), "steps": steps}
+
+    @property
+    def lengths(self) -> np.ndarray:
+        return np.diff(self.edges)
+
+
+def period_grid(times, rule: PeriodRule, calendar: str | None = None) -> PeriodGrid:
+    """The periods of ``rule`` over a record with these ``times`` (datetime64 or cftime)."""
+    axis = time_axis(times, calendar)
+    a, b, nominal = step_intervals(axis.seconds)
+    edges, labels = period_bounds(axis, rule, b[-1])
+    return PeriodGrid(rule, axis, a, b, nominal, edges, labels)
+
+
+def region_views(ds: xr.Dataset):
     """(name, area m², one-region Dataset) for each region of ``ds``."""
     if "region" in ds.dims:
         areas = ds["region_area_m2"].values if "region_area_m2" in ds.coords else np.full(ds.sizes["region"], float(ds.attrs["region_area_m2"]))
@@ -216,7 +255,7 @@ def _region_views(ds: xr.Dataset):
         yield str(ds.attrs.get("region_name", "region")), float(ds.attrs["region_area_m2"]), ds
 
 
-def _calendar_of(ds: xr.Dataset, calendar):
+def calendar_of(ds: xr.Dataset, calendar):
     return calendar or ds["time"].attrs.get("calendar") or ds["time"].encoding.get("calendar") or ds.attrs.get("calendar")
 
 
@@ -230,27 +269,21 @@ def aggregate(ds: xr.Dataset, kind: str = "month", water_year_start: int = 10, m
     ``precipitable_water_mean_mm``. The rule and calendar are in ``DataFrame.attrs``.
     """
     rule = PeriodRule(kind, water_year_start, min_coverage)
-    axis = time_axis(ds["time"].values, _calendar_of(ds, calendar))
-    a, b, nominal = step_intervals(axis.seconds)
-    edges, labels = period_bounds(axis, rule, b[-1])
-    steps = np.diff(np.searchsorted(a, edges, side="left"))
+    grid = period_grid(ds["time"].values, rule, calendar_of(ds, calendar))
     frames = []
-    for name, area, one in _region_views(ds):
-        cols = {"region": name, "period": labels, "start": axis.iso(edges[:-1]), "end": axis.iso(edges[1:]), "steps": steps}
+    for name, area, one in region_views(ds):
+        cols = {"region": name, **grid.head()}
         covered = None
         values = {}
-        for var, stem in RATE_TERMS:
+        for var, stem in RATE_TERMS + STATE_TERMS:
             if var not in one:
                 continue
-            total, covered = _integrals(a, b, np.asarray(one[var].values, float), edges)
-            values[stem] = total  # kg m-2
-        for var, col in STATE_TERMS:
-            if var in one:
-                total, covered = _integrals(a, b, np.asarray(one[var].values, float), edges)
-                values[col] = total
+            total, cov = grid.integrate(one[var].values)
+            covered = cov if covered is None else covered  # the first term (P - E) sets the coverage
+            values[stem] = total  # kg m-2 (rates) or kg m-2 s (states)
         if covered is None:
             raise RequestError("The budget holds none of the terms summed over periods (p_minus_e, precipitable_water ...); pass a budget from compute().")
-        coverage = covered / np.diff(edges)
+        coverage = covered / grid.lengths
         complete = coverage >= rule.min_coverage - 1e-12
         cols["coverage"] = coverage
         cols["complete"] = complete
@@ -269,9 +302,9 @@ def aggregate(ds: xr.Dataset, kind: str = "month", water_year_start: int = 10, m
         frames.append(pd.DataFrame(cols))
     out = pd.concat(frames, ignore_index=True)
     out.attrs.update({
-        "integration_rule": INTEGRATION_RULE, "calendar": axis.calendar, "period": rule.kind,
+        "integration_rule": INTEGRATION_RULE, "calendar": grid.axis.calendar, "period": rule.kind,
         "water_year_start_month": rule.water_year_start, "min_coverage": rule.min_coverage,
-        "nominal_step_s": nominal,
+        "nominal_step_s": grid.nominal,
     })
     return out
 
