@@ -22,7 +22,7 @@ import xarray as xr
 
 from .errors import RequestError
 from .periods import PeriodRule, calendar_of, period_grid, region_views
-from .units import convert
+from . import terms
 
 ASSUMPTION = (
     "storage change on and under the land is taken to average out over whole water years; "
@@ -136,7 +136,7 @@ def compare(ds: xr.Dataset, gauge: Gauge, water_year_start: int = 10, min_covera
     g0, g1 = gauge.times[0], gauge.times[-1]
     rows = []
     for name, area, one in region_views(ds):
-        b = _water_years(t, convert(one["p_minus_e"].values, "m3/s", area), rule, calendar_of(ds, calendar))
+        b = _water_years(t, terms.to_display("p_minus_e", one["p_minus_e"].values, "m3/s", area), rule, calendar_of(ds, calendar))
         both = b.merge(q, on="period", suffixes=("_budget", "_gauge"))
         both = both[(both["covered_s_budget"] > 0) & (both["covered_s_gauge"] > 0)]
         if both.empty:

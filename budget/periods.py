@@ -29,7 +29,8 @@ import xarray as xr
 
 from .constants import SECONDS_PER_DAY, WATER_DENSITY
 from .errors import RequestError
-from .units import convert, kg_m2_to_mm
+from . import terms
+from .units import kg_m2_to_mm
 
 KINDS = ("record", "day", "month", "season", "year", "water-year")
 
@@ -40,19 +41,21 @@ INTEGRATION_RULE = (
     "mean = total / covered time"
 )
 
-#: Rates (kg m-2 s-1) summed over periods: (variable, column stem). Missing variables are skipped.
+#: Rate terms of the catalogue (budget.terms, kg m-2 s-1) summed over periods; missing ones are
+#: skipped. Their period columns are named ``<term>_<statistic>_<unit>`` (PERIOD_STATS).
 RATE_TERMS = (
-    ("p_minus_e", "p_minus_e"),
-    ("vapour_convergence", "vapour_convergence"),
-    ("pw_tendency", "pw_tendency"),
-    ("p_minus_e_uncorrected", "p_minus_e_uncorrected"),
-    ("precipitation", "precipitation"),
-    ("evaporation", "evaporation"),
-    ("p_minus_e_observed", "p_minus_e_observed"),
+    "p_minus_e", "vapour_convergence", "pw_tendency", "p_minus_e_uncorrected",
+    "precipitation", "evaporation", "p_minus_e_observed",
 )
 
-#: States (kg m-2) averaged over periods: (variable, column).
-STATE_TERMS = (("precipitable_water", "precipitable_water_mean_mm"),)
+#: State terms of the catalogue (kg m-2) averaged over periods, shown in mm.
+STATE_TERMS = ("precipitable_water",)
+
+#: Column suffixes of a rate term in a period table: (suffix, statistic, display unit).
+PERIOD_STATS = (
+    ("total_mm", "total", "mm"), ("total_m3", "total", "m3"), ("total_km3", "total", "km3"),
+    ("mean_mm_day", "mean", "mm/day"), ("mean_m3_s", "mean", "m3/s"),
+)
 
 SEASON_NAMES = {12: "DJF", 3: "MAM", 6: "JJA", 9: "SON"}
 
@@ -275,12 +278,12 @@ def aggregate(ds: xr.Dataset, kind: str = "month", water_year_start: int = 10, m
         cols = {"region": name, **grid.head()}
         covered = None
         values = {}
-        for var, stem in RATE_TERMS + STATE_TERMS:
+        for var in RATE_TERMS + STATE_TERMS:
             if var not in one:
                 continue
             total, cov = grid.integrate(one[var].values)
             covered = cov if covered is None else covered  # the first term (P - E) sets the coverage
-            values[stem] = total  # kg m-2 (rates) or kg m-2 s (states)
+            values[var] = total  # kg m-2 (rates) or kg m-2 s (states)
         if covered is None:
             raise RequestError("The budget holds none of the terms summed over periods (p_minus_e, precipitable_water ...); pass a budget from compute().")
         coverage = covered / grid.lengths
@@ -288,17 +291,14 @@ def aggregate(ds: xr.Dataset, kind: str = "month", water_year_start: int = 10, m
         cols["coverage"] = coverage
         cols["complete"] = complete
         with np.errstate(invalid="ignore", divide="ignore"):
-            for stem, total in values.items():
+            for var, total in values.items():
                 total = np.where(complete, total, np.nan)
-                if stem.endswith("_mm"):  # a state: time mean of kg m-2 as mm
-                    cols[stem] = kg_m2_to_mm(total / covered)
+                mean = total / covered
+                if var in STATE_TERMS:  # time mean of kg m-2, as mm
+                    cols[f"{var}_mean_mm"] = terms.to_display(var, mean, "mm")
                     continue
-                mean = total / covered  # kg m-2 s-1
-                cols[f"{stem}_total_mm"] = kg_m2_to_mm(total)
-                cols[f"{stem}_total_m3"] = total * area / WATER_DENSITY
-                cols[f"{stem}_total_km3"] = total * area / WATER_DENSITY / 1e9
-                cols[f"{stem}_mean_mm_day"] = convert(mean, "mm/day", area)
-                cols[f"{stem}_mean_m3_s"] = convert(mean, "m3/s", area)
+                for suffix, stat, unit in PERIOD_STATS:
+                    cols[f"{var}_{suffix}"] = _period_value(var, stat, unit, total, mean, area)
         frames.append(pd.DataFrame(cols))
     out = pd.concat(frames, ignore_index=True)
     out.attrs.update({
@@ -307,6 +307,14 @@ def aggregate(ds: xr.Dataset, kind: str = "month", water_year_start: int = 10, m
         "nominal_step_s": grid.nominal,
     })
     return out
+
+
+def _period_value(var, stat, unit, total, mean, area):
+    """A rate term's period total (kg m-2) or mean (kg m-2 s-1) in a display unit."""
+    if stat == "mean":
+        return terms.to_display(var, mean, unit, area)
+    water = total * area / WATER_DENSITY  # m3 of liquid water
+    return {"mm": kg_m2_to_mm(total), "m3": water, "km3": water / 1e9}[unit]
 
 
 def _year_of(period: str, kind: str) -> int:
@@ -324,7 +332,7 @@ def climatology(ds: xr.Dataset, years: tuple[int, int] | None = None, water_year
     """
     monthly = aggregate(ds, "month", water_year_start, min_coverage, calendar)
     yearly = aggregate(ds, "water-year", water_year_start, min_coverage, calendar)
-    stems = [s for _, s in RATE_TERMS if f"{s}_mean_mm_day" in monthly]
+    stems = [s for s in RATE_TERMS if f"{s}_mean_mm_day" in monthly]
     rows = []
     for name in monthly["region"].unique():
         for table, kind in ((monthly, "month"), (yearly, "water-year")):
