@@ -24,6 +24,7 @@ from .constants import EARTH_RADIUS
 
 __all__ = [
     "ring_area",
+    "ring_areas",
     "cell_areas",
     "arc_lengths",
     "great_circle_points",
@@ -66,11 +67,19 @@ def ring_area(lon_deg, lat_deg, radius: float = EARTH_RADIUS) -> float:
     lon, lat = _as_ring(lon_deg, lat_deg)
     if lon.size < 3:
         return 0.0
-    lam = np.radians(lon)
-    phi = np.radians(lat)
-    dlam = np.roll(lam, -1) - lam
-    s = _edge_sin_integral(phi, np.roll(phi, -1), dlam)
-    return float(-radius * radius * np.sum(s))
+    return float(ring_areas(lon[None, :], lat[None, :], radius)[0])
+
+
+def ring_areas(lon_deg, lat_deg, radius: float = EARTH_RADIUS) -> np.ndarray:
+    """Signed areas (m²) of many rings at once: arrays (k, n), n vertices each, not closed.
+
+    The same closed form as ring_area, row by row.
+    """
+    lam = np.radians(np.asarray(lon_deg, dtype=float))
+    phi = np.radians(np.asarray(lat_deg, dtype=float))
+    dlam = np.roll(lam, -1, axis=-1) - lam
+    s = _edge_sin_integral(phi, np.roll(phi, -1, axis=-1), dlam)
+    return -radius * radius * np.sum(s, axis=-1)
 
 
 def cell_areas(lat_edges_deg, lon_edges_deg, radius: float = EARTH_RADIUS) -> np.ndarray:
