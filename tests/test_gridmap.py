@@ -2,7 +2,7 @@
 
 References: spherical rotation of coordinates (closed form, any text on spherical
 trigonometry); pyproj (PROJ) scale factors and meridian convergence for Lambert conformal
-conic; the divergence theorem on the sphere with Q = ∇χ + k×∇ψ (CHECKS.md, tests/analytic.py),
+conic; the divergence theorem on the sphere with Q = ∇χ + k×∇ψ (CHECKS.md, budget/testing.py),
 whose area integral is done by Gauss quadrature independently of the engine.
 """
 
@@ -14,7 +14,7 @@ from budget.errors import FieldsError, RegionError
 from budget.gridmap import GridMapping, ProjectedGrid, earth_relative, grid_relative
 from budget.region import region_from_bbox, region_from_vertices
 from budget.stencil import Grid, compile_stencil
-from tests import analytic
+from budget import testing as analytic
 
 R = analytic.A
 POLE_LAT, POLE_LON = 39.25, -162.0  # grid north pole of the common European regional ensembles
