@@ -246,7 +246,7 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
     r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
-    r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
+    r.add_argument("--bbox", help="box W,S,E,N in degrees, e.g. --bbox -100,30,-80,45 (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
     r.add_argument("--eddies", action="store_true", help="also split the period-mean import into mean-flow and transient-eddy parts (level inputs)")
     r.add_argument("--each-feature", action="store_true", help="one budget per feature of --region; --out is then a folder")
@@ -282,9 +282,34 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+#: Options whose value may start with a minus (a longitude west of Greenwich).
+_SIGNED_VALUE_OPTIONS = ("--bbox",)
+
+
+def _join_signed_values(argv: list[str]) -> list[str]:
+    """'--bbox -100,30,-80,45' as users type it: argparse would read the value as an option
+    (it only takes plain numbers like -100 as values), so join it to '--bbox=-100,30,-80,45'."""
+    import re
+
+    out, i = [], 0
+    while i < len(argv):
+        tok = argv[i]
+        if tok == "--":
+            return out + argv[i:]
+        nxt = argv[i + 1] if i + 1 < len(argv) else ""
+        if tok in _SIGNED_VALUE_OPTIONS and re.match(r"-[0-9.]", nxt):
+            out.append(f"{tok}={nxt}")
+            i += 2
+            continue
+        out.append(tok)
+        i += 1
+    return out
+
+
 def main(argv=None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    argv = list(sys.argv[1:] if argv is None else argv)
+    args = parser.parse_args(_join_signed_values([str(a) for a in argv]))
     try:
         return args.func(args)
     except FluxfenceError as exc:
