@@ -12,7 +12,7 @@ import sys
 import time
 from pathlib import Path
 
-from app import runfiles
+from app import cli_records, runfiles
 from budget import __version__
 from budget.errors import FluxfenceError, RequestError
 
@@ -101,8 +101,13 @@ def cmd_run(args) -> int:
     plan = Outputs(inputs=runfiles.inputs_of(args), overwrite=args.overwrite)
     out = plan.file(args.out, "--out", SUFFIXES)
     nc = plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES) if args.netcdf else None
+    tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
+    for path in tables.values():
+        if path != out:
+            plan.file(path, "--out")
     partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
-    ds, fields, region = _compute_and_write(args, plan, partial, [out, nc])
+    files = ([] if "periods" in tables else [out]) + ([nc] if nc else [])  # --aggregate puts the period table in --out
+    ds, fields, region = _compute_and_write(args, plan, partial, files, tables)
     if not args.quiet:
         print(_summary(ds))
     if args.eddies:
@@ -119,11 +124,11 @@ def cmd_run(args) -> int:
     return 0
 
 
-def _compute_and_write(args, plan, partial, targets):
+def _compute_and_write(args, plan, partial, targets, tables):
     """One budget, its outputs staged and committed together; the resume folder goes last."""
     import json
 
-    from budget.export import encode
+    from budget.export import encode, frame_csv_text
     from budget.fields import open_fields
     from budget.region import load_region
 
@@ -138,10 +143,11 @@ def _compute_and_write(args, plan, partial, targets):
                 print(f"warning: {w}", file=sys.stderr)
         try:
             runfiles.hold("computed")
-            for k, target in enumerate(t for t in targets if t is not None):
+            for k, target in enumerate(targets):
                 if k:
                     runfiles.hold("staged")
                 plan.stage(target, encode(ds, target))
+            cli_records.write_tables(args, ds, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
             plan.commit()
         except KeyboardInterrupt:
             raise runfiles.WriteInterrupted(partial) from None
@@ -178,6 +184,8 @@ def _run_each_feature(args) -> int:
     from budget.region import list_features, load_region
     from budget.stencil import Grid, compile_stencil
 
+    if cli_records.wanted(args):
+        raise RequestError("--aggregate, --climatology and --discharge work on one budget; leave out --each-feature.")
     if not args.region:
         raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
     if args.feature:
@@ -275,7 +283,7 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
     r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
-    r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
+    r.add_argument("--bbox", help="box W,S,E,N in degrees, e.g. --bbox -100,30,-80,45 (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
     r.add_argument("--eddies", action="store_true", help="also split the period-mean import into mean-flow and transient-eddy parts (level inputs)")
     r.add_argument("--each-feature", action="store_true", help="one budget per feature of --region; --out is then a folder")
@@ -296,6 +304,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-period", metavar="DURATION", help="accumulated precipitation/evaporation restart every DURATION (1h: each value covers the step before it; 12h; none: never)")
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
+    cli_records.add_options(r)
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")
@@ -312,9 +321,34 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+#: Options whose value may start with a minus (a longitude west of Greenwich).
+_SIGNED_VALUE_OPTIONS = ("--bbox",)
+
+
+def _join_signed_values(argv: list[str]) -> list[str]:
+    """'--bbox -100,30,-80,45' as users type it: argparse would read the value as an option
+    (it only takes plain numbers like -100 as values), so join it to '--bbox=-100,30,-80,45'."""
+    import re
+
+    out, i = [], 0
+    while i < len(argv):
+        tok = argv[i]
+        if tok == "--":
+            return out + argv[i:]
+        nxt = argv[i + 1] if i + 1 < len(argv) else ""
+        if tok in _SIGNED_VALUE_OPTIONS and re.match(r"-[0-9.]", nxt):
+            out.append(f"{tok}={nxt}")
+            i += 2
+            continue
+        out.append(tok)
+        i += 1
+    return out
+
+
 def main(argv=None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    argv = list(sys.argv[1:] if argv is None else argv)
+    args = parser.parse_args(_join_signed_values([str(a) for a in argv]))
     try:
         if args.command == "serve":  # the server handles its own signals
             return args.func(args)

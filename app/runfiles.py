@@ -27,8 +27,8 @@ _received: list[int] = []
 
 
 def inputs_of(args) -> list:
-    """Every input path of a run (fields, globs and the region file): never an output."""
-    return [*args.fields, getattr(args, "region", None)]
+    """Every input path of a run (fields, globs, the region and gauge files): never an output."""
+    return [*args.fields, getattr(args, "region", None), getattr(args, "discharge", None)]
 
 
 def default_resume(out: Path) -> Path:
