@@ -63,6 +63,7 @@ SPEED = {
     "metres/second": 1.0, "meter/second": 1.0, "metre/second": 1.0, "m s^-1": 1.0,
     "m/sec": 1.0, "m sec-1": 1.0, "meters second-1": 1.0,
     "knots": KNOT, "knot": KNOT, "kt": KNOT, "kts": KNOT,
+    "km/h": 1000.0 / 3600.0, "km h-1": 1000.0 / 3600.0,
 }
 MASS_FRACTION = {
     "kg kg-1": 1.0, "kg/kg": 1.0, "kg kg**-1": 1.0, "1": 1.0, "kg kg^-1": 1.0,
