@@ -6,12 +6,13 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
+import matplotlib.dates as mdates
 import numpy as np
 from matplotlib.figure import Figure
 
 from . import style as st
 from .data import SERIES_LABELS
-from .mapview import arrow_key, base_axes, draw_region, frame_for, ivt_layer, ivt_limit, nice_reference
+from .mapview import base_axes, draw_region, frame_for, ivt_layer, ivt_limit, nice_reference
 from .page import atomic_file
 
 FRAME_SIZE = (12.8, 7.2)  # inches at 100 dpi: 1280 x 720 pixels, even sides for H.264
@@ -78,18 +79,21 @@ def _frame_figure(data, snapshots, style):
     """The figure drawn once; ``update(i)`` moves it to step i."""
     fig = Figure(figsize=FRAME_SIZE)
     frame = frame_for(data)
-    ax = base_axes(fig, (0.04, 0.34, 0.55, 0.6), frame, style)
+    ax = base_axes(fig, (0.03, 0.4, 0.6, 0.52), frame, style)
     vmax = max(ivt_limit(s["ivt"].values) for s in snapshots)
     mesh, quiv = ivt_layer(ax, snapshots[0], style, vmax)
     ref = nice_reference(vmax)
-    arrow_key(ax, quiv, ref, style)
+    fig.text(0.7, 0.47, "arrow scale:", fontsize=style.font_size * 0.8, color=st.MUTED, va="center")
+    key = ax.quiverkey(quiv, 0.85, 0.47, ref, f"{ref:g} kg m⁻¹ s⁻¹", labelpos="E", coordinates="figure",
+                       color=st.INK, fontproperties={"size": style.font_size * 0.8})
+    key.set_zorder(9)
     draw_region(ax, data.region, style, numbers=False)
-    cax = fig.add_axes((0.63, 0.42, 0.015, 0.45))
+    cax = ax.inset_axes((1.04, 0.0, 0.035, 1.0))
     bar = fig.colorbar(mesh, cax=cax, extend="max")
     bar.set_label("IVT, kg m⁻¹ s⁻¹")
-    title = fig.text(0.04, 0.965, "", fontsize=style.title_size * 1.1, fontweight="bold", va="top")
+    title = fig.text(0.03, 0.975, "", fontsize=style.title_size, fontweight="bold", va="top")
     # running series below the map
-    sax = fig.add_axes((0.07, 0.09, 0.86, 0.2))
+    sax = fig.add_axes((0.07, 0.14, 0.86, 0.2))
     times = data.times
     lines = {}
     for name in ("p_minus_e", "boundary_convergence", "pw_tendency"):
@@ -99,6 +103,9 @@ def _frame_figure(data, snapshots, style):
     sax.axhline(0.0, color=st.MUTED, linewidth=0.6 * style.line_width)
     sax.set_xlim(times[0], times[-1])
     sax.set_ylabel("mm/day")
+    locator = mdates.AutoDateLocator(minticks=3, maxticks=7)
+    sax.xaxis.set_major_locator(locator)
+    sax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
     sax.legend(loc="upper left", ncol=3)
     marker = sax.axvline(times[0], color=st.OUTLINE, linewidth=style.line_width)
     _side_notes(fig, data, style)
@@ -112,8 +119,7 @@ def _frame_figure(data, snapshots, style):
         for line, values in lines.values():
             line.set_data(times[: i + 1], values[: i + 1])
         marker.set_xdata([times[i], times[i]])
-        title.set_text(f"{data.region_name}: vapour transport at {times[i]:%Y-%m-%d %H:%M} UTC "
-                       f"(step {i + 1} of {len(snapshots)})")
+        title.set_text(f"{data.region_name} · {times[i]:%Y-%m-%d %H:%M} UTC · step {i + 1} of {len(snapshots)}")
 
     update(0)
     return fig, update
@@ -138,5 +144,5 @@ def _side_notes(fig, data, style) -> None:
     text = (f"area {data.area_m2 / 1e6:,.0f} km²\nmean P − E {np.nanmean(pme):.2f} mm/day\n"
             f"mean W {np.nanmean(data.series('precipitable_water')):.1f} mm\n\n"
             "outline: the region\narrows: IVT direction")
-    fig.text(0.7, 0.85, text, fontsize=style.font_size, va="top", color=st.INK, linespacing=1.5)
+    fig.text(0.7, 0.88, text, fontsize=style.font_size, va="top", color=st.INK, linespacing=1.5)
     st.add_caption(fig, data, style)
