@@ -21,6 +21,8 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
+from budget import terms
+
 # ---------------------------------------------------------------------------------------------
 # Look: a calm palette of our own
 # ---------------------------------------------------------------------------------------------
@@ -475,11 +477,13 @@ def curtain_figure(budget, time_index: int) -> go.Figure:
 # ---------------------------------------------------------------------------------------------
 # Budget series and period table
 # ---------------------------------------------------------------------------------------------
-SERIES_RATES = [
-    ("boundary_convergence", "convergence (boundary)", ACCENT, "solid"),
-    ("area_convergence", "convergence (area)", "#6fa8b0", "dash"),
-    ("pw_tendency", "dW/dt", MUTED, "dot"),
-    ("p_minus_e", "P − E", WARM, "solid"),
+SERIES_RATES = [  # (variable, legend from the term catalogue, colour, dash)
+    (name, terms.term(name).legend, color, dash) for name, color, dash in (
+        ("boundary_convergence", ACCENT, "solid"),
+        ("area_convergence", "#6fa8b0", "dash"),
+        ("pw_tendency", MUTED, "dot"),
+        ("p_minus_e", WARM, "solid"),
+    )
 ]
 
 
@@ -522,25 +526,13 @@ def series_figure(budget, units: str = "mm/day", time_index: int | None = None, 
     return fig
 
 
-PERIOD_TERMS = [
-    ("boundary_convergence", "Convergence, boundary method"),
-    ("area_convergence", "Convergence, area method"),
-    ("pw_tendency", "Change of precipitable water, dW/dt"),
-    ("p_minus_e", "P − E"),
-    # closing the budget (present only when they apply, budget/closure.py)
-    ("p_minus_e_uncorrected", "P − E without the mass correction"),
-    ("mass_correction_convergence", "Effect of the mass correction"),
-    ("precipitation", "Precipitation in the files"),
-    ("evaporation", "Evaporation in the files (upward)"),
-    ("p_minus_e_observed", "P − E from the files"),
-    ("closure_residual", "Closure residual (files − budget)"),
-    ("p_minus_e_total_water", "P − E, total water"),
-]
+#: Rate rows of the period table: (variable, label), from the term catalogue (budget/terms.py).
+PERIOD_TERMS = [(t.name, t.label) for t in terms.table_terms()]
 
 #: Closure terms shown as period means in their own units (not convertible rates).
 CLOSURE_MEANS = [
-    ("dry_air_residual_pressure", "Dry-air residual", "hPa day⁻¹", 1.0),
-    ("mass_correction_speed", "Mass-correction speed (outward)", "cm s⁻¹", 100.0),
+    ("dry_air_residual_pressure", terms.term("dry_air_residual_pressure").label, "hPa day⁻¹", 1.0),
+    ("mass_correction_speed", terms.term("mass_correction_speed").label, "cm s⁻¹", 100.0),
 ]
 
 
