@@ -8,21 +8,27 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from budget.units import convert, kg_m2_to_mm
+from budget.terms import term, to_display
+from budget.units import convert
 
-# Series the figures draw: variable -> (label, unit written on the axis).  Rates are drawn as
-# area means in mm/day (kg m-2 s-1 x 86400 s/day for liquid water), precipitable water in mm.
-SERIES_LABELS = {
-    "precipitable_water": ("precipitable water W", "mm"),
-    "boundary_convergence": ("convergence, boundary integral", "mm/day"),
-    "area_convergence": ("convergence, area integral", "mm/day"),
-    "pw_tendency": ("dW/dt", "mm/day"),
-    "p_minus_e": ("P − E", "mm/day"),
-    "precipitation": ("precipitation P (files)", "mm/day"),
-    "evaporation": ("evaporation E (files)", "mm/day"),
-    "closure_residual": ("closure residual", "mm/day"),
-    "mass_correction_convergence": ("mass-correction effect", "mm/day"),
+# The unit each series is drawn in: rates as area means in mm/day, precipitable water in mm.
+# Labels and conversions come from the term catalogue (budget/terms.py).
+SERIES_UNITS = {
+    "precipitable_water": "mm",
+    "boundary_convergence": "mm/day",
+    "area_convergence": "mm/day",
+    "pw_tendency": "mm/day",
+    "p_minus_e": "mm/day",
+    "precipitation": "mm/day",
+    "evaporation": "mm/day",
+    "closure_residual": "mm/day",
+    "mass_correction_convergence": "mm/day",
 }
+
+
+def series_label(name: str) -> str:
+    """The legend entry of a budget series (term catalogue)."""
+    return term(name).legend
 
 
 @dataclass
@@ -68,13 +74,10 @@ class FigureData:
         return " · ".join(parts)
 
     def series(self, name: str) -> np.ndarray | None:
-        """A budget series in the unit of SERIES_LABELS, or None when the budget lacks it."""
+        """A budget series in its SERIES_UNITS unit, or None when the budget lacks it."""
         if name not in self.budget:
             return None
-        values = self.budget[name].values
-        if SERIES_LABELS[name][1] == "mm":
-            return kg_m2_to_mm(values)
-        return convert(values, "mm/day", self.area_m2)
+        return to_display(name, self.budget[name].values, SERIES_UNITS[name], self.area_m2)
 
     def to_m3_s(self, mm_day):
         """An area-mean rate in mm/day as a volume rate over the region, m3 s-1."""

@@ -11,7 +11,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from . import style as st
-from .data import SERIES_LABELS
+from .data import series_label
 from .mapview import base_axes, draw_region, frame_for, ivt_layer, ivt_limit, nice_reference
 from .page import atomic_file
 
@@ -99,7 +99,7 @@ def _frame_figure(data, snapshots, style):
     for name in ("p_minus_e", "boundary_convergence", "pw_tendency"):
         values = data.series(name)
         sax.plot(times, values, color=st.SERIES_COLOURS[name], alpha=0.15)
-        lines[name] = (sax.plot([], [], color=st.SERIES_COLOURS[name], label=SERIES_LABELS[name][0])[0], values)
+        lines[name] = (sax.plot([], [], color=st.SERIES_COLOURS[name], label=series_label(name))[0], values)
     sax.axhline(0.0, color=st.MUTED, linewidth=0.6 * style.line_width)
     sax.set_xlim(times[0], times[-1])
     sax.set_ylabel("mm/day")

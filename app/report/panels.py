@@ -9,7 +9,7 @@ import numpy as np
 from matplotlib.colors import TwoSlopeNorm
 
 from . import style as st
-from .data import SERIES_LABELS, discharge_cycle, monthly_cycle
+from .data import discharge_cycle, monthly_cycle, series_label
 
 CLOSURE_TERMS = ("precipitation", "evaporation", "closure_residual", "mass_correction_convergence")
 
@@ -34,7 +34,7 @@ def _line(ax, data, name, **kw):
     values = data.series(name)
     if values is None:
         return False
-    ax.plot(data.times, values, color=st.SERIES_COLOURS[name], label=SERIES_LABELS[name][0], **kw)
+    ax.plot(data.times, values, color=st.SERIES_COLOURS[name], label=series_label(name), **kw)
     return True
 
 
