@@ -18,6 +18,7 @@ import xarray as xr
 from budget.errors import RequestError
 
 MAP_STEP_LIMIT = 240  # a period-mean map averages at most this many evenly spaced steps
+PROFILE_STEP_LIMIT = 2000  # per-level boundary fluxes (the height curtain) kept up to this many steps
 NEEDS_MAP = ("map", "report")
 
 
@@ -112,7 +113,8 @@ def figure_data(fields=None, region=None, budget=None, start=None, end=None, wit
             raise RequestError("Give the field files and --region (or --bbox), or a saved budget with --budget FILE.nc.")
         from budget.ledger import compute
 
-        budget = compute(fields, region, profiles=fields.kind == "levels")
+        # the curtain's per-level fluxes grow with steps x levels x pieces: kept for events only
+        budget = compute(fields, region, profiles=fields.times.size <= PROFILE_STEP_LIMIT)
     else:
         region = region_from_geojson(json.loads(budget.attrs["region_geojson"]), name=budget.attrs.get("region_name"))
         if start or end:

@@ -28,7 +28,7 @@ def render(layout: str, data, style: st.Style, page: str = "a4", convergence: bo
             return _report(data, style, page, convergence)
         w, h = style.map_size if layout == "map" else style.single
         if layout == "map" and convergence:
-            w *= 1.8
+            w *= 1.5
         if layout == "boundary":
             h *= 1.25
         fig = Figure(figsize=(w, h))

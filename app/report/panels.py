@@ -142,7 +142,7 @@ def draw_boundary(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool = F
     ax.set_title("period-mean net import per edge (> 0 into the region)")
     axes.append(ax)
     if not has_curtain:
-        ax.text(0.99, 0.97, "no height curtain: a saved budget has no per-level fluxes; draw from the field files",
+        ax.text(0.99, 0.97, "no height curtain: it needs per-level fluxes, kept when drawing from level fields of up to 2000 steps",
                 transform=ax.transAxes, ha="right", va="top", fontsize=style.caption_size, color=st.MUTED)
     return axes
 
