@@ -1,4 +1,4 @@
-"""Command line: `fluxfence run | serve | sample`.
+"""Command line: `fluxfence run | serve | sample | figure` (figure: app/figure_cmd.py).
 
 Every user-facing problem ends in one sentence on stderr and a non-zero exit status; a
 traceback means a bug.
@@ -280,6 +280,10 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--out", default="demo", help="folder to write into")
     m.add_argument("--overwrite", action="store_true")
     m.set_defaults(func=cmd_sample)
+
+    from app.figure_cmd import add_parser as add_figure_parser
+
+    add_figure_parser(sub)
     return p
 
 
