@@ -79,8 +79,9 @@ def _pid_alive(pid: int) -> bool:
 def clean_stale(target: Path) -> list[Path]:
     """Remove temporaries of `target` left by processes that no longer run (SIGKILL, power cut)."""
     removed = []
-    pat = re.compile(re.escape(f".{target.name}.") + r"(\d+)-[^/]*" + re.escape(_TMP_SUFFIX) + "$")
-    for f in glob.glob(os.path.join(glob.escape(str(target.parent)), f".{glob.escape(target.name)}.*{_TMP_SUFFIX}")):
+    pat = re.compile(re.escape(f".{target.name}.") + r"(\d+)-[^/]*" + re.escape(_TMP_SUFFIX)
+                     + "(" + re.escape(target.suffix) + ")?$")
+    for f in glob.glob(os.path.join(glob.escape(str(target.parent)), f".{glob.escape(target.name)}.*{_TMP_SUFFIX}*")):
         m = pat.match(os.path.basename(f))
         if m and int(m.group(1)) != os.getpid() and not _pid_alive(int(m.group(1))):
             try:
@@ -104,14 +105,17 @@ def _os_error(exc: OSError, target: Path, flag: str) -> RequestError:
                         "Nothing was written.")
 
 
-def _write_temp(target: Path, data, flag: str = "--out") -> Path:
+def _write_temp(target: Path, data, flag: str = "--out", keep_suffix: bool = False) -> Path:
     """The data in a complete, fsync'ed temporary file beside `target`, with the usual mode.
 
     `data` is bytes, text (written as UTF-8) or a function that writes a file at the path it
-    is given (for writers that need a path, such as a NetCDF library).
+    is given (for writers that need a path, such as a NetCDF library). `keep_suffix` ends the
+    temporary's name in the target's extension too (.tmp.png), for writers that read the format
+    from the name.
     """
+    suffix = _TMP_SUFFIX + (target.suffix if keep_suffix else "")
     try:
-        fd, tmp = tempfile.mkstemp(prefix=_tmp_prefix(target), suffix=_TMP_SUFFIX, dir=target.parent)
+        fd, tmp = tempfile.mkstemp(prefix=_tmp_prefix(target), suffix=suffix, dir=target.parent)
     except OSError as exc:
         raise _os_error(exc, target, flag) from None
     try:
@@ -177,11 +181,12 @@ def _place(tmp: Path, target: Path, overwrite: bool) -> None:
     _unlink(tmp)
 
 
-def atomic_write(path, data, overwrite: bool = True, flag: str = "--out") -> Path:
+def atomic_write(path, data, overwrite: bool = True, flag: str = "--out", keep_suffix: bool = False) -> Path:
     """Write `data` to `path` atomically; returns the path.
 
     `data`: bytes, text (UTF-8), or a function writing a file at the temporary path it is given.
-    `flag` names the option a user changes to write elsewhere (in the error sentences).
+    `flag` names the option a user changes to write elsewhere (in the error sentences);
+    `keep_suffix` keeps the target's extension on the temporary (see `_write_temp`).
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
@@ -191,7 +196,7 @@ def atomic_write(path, data, overwrite: bool = True, flag: str = "--out") -> Pat
         raise RequestError(f"{str(target)!r} is a folder; give a file name.")
     if target.exists() and not overwrite:
         raise RequestError(f"{str(target)!r} exists already; choose another path or pass --overwrite.")
-    tmp = _write_temp(target, data, flag)
+    tmp = _write_temp(target, data, flag, keep_suffix)
     try:
         _place(tmp, target, overwrite)
     except BaseException:

@@ -163,3 +163,14 @@ def test_a_writer_function_gets_the_temporary_path(tmp_path):
     with pytest.raises(ZeroDivisionError):
         atomic_write(tmp_path / "lib.nc", lambda p: 1 / 0)  # a failing writer: old file kept
     assert (tmp_path / "lib.nc").read_bytes() == b"written by a library" and _leftovers(tmp_path) == []
+
+
+def test_keep_suffix_for_writers_that_read_the_format_from_the_name(tmp_path):
+    # matplotlib's savefig and ffmpeg pick a format by extension: the temporary ends in .tmp.png
+    seen = []
+    atomic_write(tmp_path / "fig.png", lambda p: (seen.append(p.name), p.write_bytes(b"png")), keep_suffix=True)
+    assert seen[0].endswith(".tmp.png") and (tmp_path / "fig.png").read_bytes() == b"png"
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    stale = tmp_path / f".fig.png.{int(dead.stdout)}-x.tmp.png"
+    stale.write_bytes(b"half")
+    assert clean_stale(tmp_path / "fig.png") == [stale]
