@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .catalogue import role
 from .errors import RequestError
 from .units import RATE_UNITS, convert, kg_m2_to_mm, transport_to_rate
 
@@ -95,11 +96,17 @@ def _c(name: str, unit: str, summary: bool = False) -> Column:
     return Column(name, unit, summary)
 
 
+def _cf(role_key: str) -> str:
+    """The CF standard name of an input role (budget/catalogue.py), where an output term is the
+    same quantity (precipitable water, precipitation, evaporation): spelled once, there."""
+    return role(role_key).standard_names[0]
+
+
 TERMS: tuple[Term, ...] = (
     # the water-vapour budget (budget.ledger)
     Term("precipitable_water", _MASS, "area-mean precipitable water", "vapour", "Precipitable water", "W (area mean)",
          method="cover-weighted mean of W; 1 kg m-2 = 1 mm",
-         standard_name="atmosphere_mass_content_of_water_vapor",
+         standard_name=_cf("w"),
          columns=(_c("precipitable_water_mm", "mm", True),)),
     Term("vapour_convergence", _RATE, "area-mean vapour-flux convergence", "vapour", "Vapour convergence",
          method="boundary or area method, as the run's `method` attribute says",
@@ -157,10 +164,10 @@ TERMS: tuple[Term, ...] = (
          columns=(_c("dry_air_residual_hpa_day", "hPa/day", True),)),
     # precipitation and evaporation from the files (budget.observed)
     Term("precipitation", _RATE, "area-mean precipitation from the files", "observed", "Precipitation in the files",
-         "precipitation", standard_name="precipitation_flux",
+         "precipitation", standard_name=_cf("precip"),
          columns=(_c("precipitation_mm_day", "mm/day", True),), table=7),
     Term("evaporation", _RATE, "area-mean evaporation from the files, positive upward", "observed",
-         "Evaporation in the files (upward)", "evaporation", standard_name="water_evapotranspiration_flux",
+         "Evaporation in the files (upward)", "evaporation", standard_name=_cf("evap"),
          columns=(_c("evaporation_mm_day", "mm/day", True),), table=8),
     Term("p_minus_e_observed", _RATE, "precipitation minus evaporation from the files", "observed",
          "P − E from the files", columns=(_c("p_minus_e_observed_mm_day", "mm/day"),), table=9),

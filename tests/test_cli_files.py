@@ -235,10 +235,10 @@ def test_disk_full_in_process(demo, tmp_path, monkeypatch, capsys):
 
     real = outputs._write_temp
 
-    def full_on_netcdf(target, data, flag="--out"):
+    def full_on_netcdf(target, data, *rest):
         if Path(target).suffix == ".nc":
-            raise outputs._os_error(OSError(errno.ENOSPC, "No space left on device"), Path(target), flag)
-        return real(target, data, flag)
+            raise outputs._os_error(OSError(errno.ENOSPC, "No space left on device"), Path(target), "--netcdf")
+        return real(target, data, *rest)
 
     monkeypatch.setattr(outputs, "_write_temp", full_on_netcdf)
     out, nc = tmp_path / "b.csv", tmp_path / "b.nc"
