@@ -258,6 +258,7 @@ def close(fields, st, times, sums, vapour: VapourTerms, method: str, opts: Closu
     summary["mass_correction"] = state.sentence
     summary["mass_correction_applied"] = "on" if state.applied else "off"
     summary["variables_used"] = {**dict(getattr(fields, "roles", {})), **dict(getattr(fields, "extra_roles", {}))}
+    summary["flagged_values"] = {k: int(n) for k, n in sorted(sums.flagged.items())}
     out.attrs.update(state.attrs())
     out.attrs["mass_correction_method"] = (
         "regional barotropic correction (Trenberth 1991): one uniform outward boundary-normal wind "
