@@ -15,7 +15,6 @@ import json
 import logging
 import os
 import re
-import tempfile
 import threading
 import time
 import uuid
@@ -241,22 +240,10 @@ def _decode_upload(contents: str, filename: str) -> bytes:
 
 
 def _upload_features(filename: str, data: bytes) -> list[dict]:
-    from budget.errors import RegionError
     from budget.region import list_features
 
-    ext = Path(filename).suffix.lower()
-    if ext in (".geojson", ".json"):
-        return list_features(data)
-    if ext == ".zip":
-        with tempfile.TemporaryDirectory() as tmp:
-            p = Path(tmp) / "upload.zip"
-            p.write_bytes(data)
-            return list_features(str(p))
-    if ext == ".shp":
-        return [{"index": 0, "name": Path(filename).stem}]
-    raise RegionError(
-        f"The uploaded file '{filename}' has an unsupported type '{ext or '(none)'}'; upload "
-        ".geojson, .json or a .zip holding a shapefile.")
+    # the region package picks the reader by the name and reads a zip in memory, capped
+    return list_features(data, filename=filename)
 
 
 _REGION_OUTPUTS = [  # (keyword used in _pack, component, property)
