@@ -66,11 +66,11 @@ def restrict(columns: ledger.Columns, pos: np.ndarray, ncell: int) -> ledger.Col
     return ledger.Columns(**{k: take(getattr(columns, k)) for k in columns.__dataclass_fields__})
 
 
-def _many_block(fields, union: CellUnion, stencils, positions, ds, tslice: slice) -> list[BlockSums]:
+def _many_block(fields, union: CellUnion, stencils, positions, ds, attribute, tslice: slice) -> list[BlockSums]:
     """One block: read the union once, then every region's sums from its own cells."""
-    c = ledger.read_columns(fields, union, ds, tslice, profiles=False)
+    c = ledger.read_columns(fields, union, ds, tslice, profiles=False, keep_levels=attribute.layers is not None)
     n = union.touched.size
-    return [ledger.block_sums(fields, st, restrict(c, pos, n)) for st, pos in zip(stencils, positions)]
+    return [ledger.block_sums(fields, st, restrict(c, pos, n), attribute=attribute) for st, pos in zip(stencils, positions)]
 
 
 def compile_all(fields, named_regions, labels=None) -> list:
@@ -105,7 +105,7 @@ def compute_each(fields, named_regions, method: str = "boundary", start=None, en
     ds = time_window(fields.ds, start, end)
     times = ds["time"].values
     chunk = block_steps(fields.kind, union, ds, times.size)
-    func = partial(_many_block, fields, union, stencils, positions, fields.ds)
+    func = partial(_many_block, fields, union, stencils, positions, fields.ds, options.attribution)
     parts = run_blocks(Shifted(func, window_offset(fields.ds["time"].values, times)), times.size, chunk,
                        progress=progress, scheduler=scheduler)
     out = []
