@@ -111,12 +111,13 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) 
         cache_dir = tempfile.mkdtemp(prefix="fluxfence-cache-")
     cache_dir = Path(cache_dir)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    configure(Settings(
+    state = configure(Settings(
         sources=tuple(Source(id=s["id"], label=s["label"], paths=tuple(s["paths"]),
                              root=s.get("root"), basin=s.get("basin")) for s in sources),
         cache_dir=cache_dir, assets=ASSETS, upload_limit=UPLOAD_LIMIT_BYTES,
         job_threads=job_threads,
     ))
+    state.warm()  # open the first field set now, not when the first page asks
 
     app = dash.Dash(
         __name__,

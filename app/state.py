@@ -153,6 +153,18 @@ class AppState:
                 self._opened[sid] = hit
             return hit[1]
 
+    def warm(self) -> threading.Thread:
+        """Open the first field set in the background, so the first page does not wait."""
+        def opener():
+            try:
+                self.fields(self.settings.sources[0].id)
+            except Exception:  # noqa: BLE001 - the page shows the same problem in a sentence
+                pass
+
+        thread = threading.Thread(target=opener, name="fluxfence-warm", daemon=True)
+        thread.start()
+        return thread
+
     def snapshot(self, source_id, time_index: int):
         from budget.maps import column_snapshot
 

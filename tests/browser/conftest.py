@@ -54,6 +54,9 @@ def dashboard(tmp_path_factory):
 
     cache = tmp_path_factory.mktemp("dash-cache")
     app = create_app(cache_dir=cache)
+    from app.state import current
+
+    current().fields("0")  # the sample's fields open before the first page (as serve warms)
     server = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
