@@ -60,14 +60,6 @@ def _partial_dir(out: Path) -> Path:
     return out.with_name(out.name + ".partial")
 
 
-#: Closure columns (budget.export) averaged in the per-region summary table.
-_CLOSURE_MEANS = (
-    "p_minus_e_uncorrected_mm_day", "mass_correction_mm_day", "mass_correction_speed_m_s",
-    "dry_air_residual_hpa_day", "precipitation_mm_day", "evaporation_mm_day", "closure_residual_mm_day",
-    "p_minus_e_total_water_mm_day",
-)
-
-
 def _closure_options(args) -> dict:
     """compute() keywords for closing the budget (budget.closure)."""
     return {
@@ -79,6 +71,7 @@ def _closure_options(args) -> dict:
 
 
 def _summary(ds) -> str:
+    from budget import terms
     from budget.export import to_frame
 
     df = to_frame(ds)
@@ -90,28 +83,12 @@ def _summary(ds) -> str:
         ("method", ds.attrs.get("method", "")),
         ("mass correction", ds.attrs.get("mass_correction", "")),
     ]
-    means = [
-        ("precipitable water", "precipitable_water_mm", "mm"),
-        ("vapour convergence", "vapour_convergence_mm_day", "mm/day"),
-        ("  area method", "area_convergence_mm_day", "mm/day"),
-        ("PW tendency", "pw_tendency_mm_day", "mm/day"),
-        ("P − E", "p_minus_e_mm_day", "mm/day"),
-        ("P − E", "p_minus_e_m3_s", "m³/s"),
-        ("net import", "vapour_import_kg_s", "kg/s"),
-        ("P − E uncorrected", "p_minus_e_uncorrected_mm_day", "mm/day"),
-        ("correction effect", "mass_correction_mm_day", "mm/day"),
-        ("correction speed", "mass_correction_speed_m_s", "m/s"),
-        ("dry-air residual", "dry_air_residual_hpa_day", "hPa/day"),
-        ("precipitation", "precipitation_mm_day", "mm/day"),
-        ("evaporation", "evaporation_mm_day", "mm/day"),
-        ("closure residual", "closure_residual_mm_day", "mm/day"),
-        ("total-water P − E", "p_minus_e_total_water_mm_day", "mm/day"),
-    ]
     lines = [f"{k:<22}{v}" for k, v in rows]
-    lines.append(f"{'mean over the period':<22}")
-    for label, col, unit in means:
-        if col in df:
-            lines.append(f"  {label:<20}{df[col].mean():>14.4g} {unit}")
+    lines.append("mean over the period")
+    for col, term in terms.summary_columns():
+        if col.name in df:
+            label = term.label[0].lower() + term.label[1:] if term.label[1:2].islower() else term.label
+            lines.append(f"  {label:<40}{df[col.name].mean():>14.4g} {terms.unit_label(col.unit)}")
     return "\n".join(lines)
 
 
@@ -170,6 +147,7 @@ def _run_each_feature(args) -> int:
     """One budget per feature of a region file: OUT/<name>.csv each, and OUT/summary.csv."""
     import pandas as pd
 
+    from budget import terms
     from budget.export import to_frame, write, write_frame
     from budget.fields import open_fields
     from budget.ledger import compute
@@ -212,15 +190,15 @@ def _run_each_feature(args) -> int:
         df = to_frame(ds)
         row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
                "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
-        for col in ("precipitable_water_mm", "vapour_convergence_mm_day", "pw_tendency_mm_day", "p_minus_e_mm_day", "p_minus_e_m3_s",
-                    *_CLOSURE_MEANS):
-            if col in df:
-                row[f"mean_{col}"] = df[col].mean()
+        for col, _ in terms.summary_columns():
+            if col.name in df:
+                row[f"mean_{col.name}"] = df[col.name].mean()
         row["mass_correction"] = ds.attrs.get("mass_correction", "")
         rows.append(row)
     write_frame(pd.DataFrame(rows), summary_path)
     if not args.quiet:
-        print(pd.DataFrame(rows)[["region", "area_km2"] + [c for c in ("mean_p_minus_e_mm_day",) if c in rows[0]]].to_string(index=False))
+        pme = f"mean_{terms.term('p_minus_e').columns[0].name}"
+        print(pd.DataFrame(rows)[["region", "area_km2"] + [c for c in (pme,) if c in rows[0]]].to_string(index=False))
         print(f"wrote {len(jobs)} budgets and {summary_path}")
         print(CAUTION)
     return 0

@@ -21,6 +21,8 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
+from budget import terms
+
 # ---------------------------------------------------------------------------------------------
 # Look: a calm palette of our own
 # ---------------------------------------------------------------------------------------------
@@ -452,9 +454,12 @@ def map_figure(
 @dataclass(frozen=True)
 class Rate:
     var: str
-    label: str
     color: str
     dash: str = "solid"
+
+    @property
+    def label(self) -> str:  # the legend entry of the term catalogue (budget/terms.py)
+        return terms.term(self.var).legend
 
 
 @dataclass(frozen=True)
@@ -474,22 +479,18 @@ class BudgetView:
 VIEWS = {
     "vapour": BudgetView(
         "water-vapour budget", "moisture", "precipitable_water", "W (area mean)",
-        (Rate("boundary_convergence", "convergence (boundary)", ACCENT),
-         Rate("area_convergence", "convergence (area)", "#6fa8b0", "dash"),
-         Rate("pw_tendency", "dW/dt", MUTED, "dot"),
-         Rate("p_minus_e", "P − E", WARM)),
+        (Rate("boundary_convergence", ACCENT), Rate("area_convergence", "#6fa8b0", "dash"),
+         Rate("pw_tendency", MUTED, "dot"), Rate("p_minus_e", WARM)),
         "edge_import", "boundary_import_density", "normal_flux_density"),
     "dry": BudgetView(
         "dry-air mass budget", "dry air", "dry_air_mass", "dry-air mass (area mean)",
-        (Rate("dry_air_convergence", "mass convergence", ACCENT),
-         Rate("dry_air_tendency", "dμ/dt (tendency)", MUTED, "dot"),
-         Rate("dry_air_residual", "residual (tendency − convergence)", WARM)),
+        (Rate("dry_air_convergence", ACCENT), Rate("dry_air_tendency", MUTED, "dot"),
+         Rate("dry_air_residual", WARM)),
         "dry_air_edge_import", "dry_air_import_density", "dry_air_normal_flux_density"),
     "total": BudgetView(
         "total-water budget", "water", "total_water_content", "total water (area mean)",
-        (Rate("total_water_convergence", "convergence", ACCENT),
-         Rate("total_water_tendency", "d(total water)/dt", MUTED, "dot"),
-         Rate("p_minus_e_total_water", "P − E, total water", WARM)),
+        (Rate("total_water_convergence", ACCENT), Rate("total_water_tendency", MUTED, "dot"),
+         Rate("p_minus_e_total_water", WARM)),
         "total_water_edge_import", "total_water_import_density", "total_water_normal_flux_density"),
 }
 
@@ -743,26 +744,14 @@ def _row(term: str, mean: str, total: str, mean_value=float("nan"), total_value=
             "total_value": float(total_value)}
 
 
+#: Rate rows of the period table, (variable, label) from the term catalogue (budget/terms.py)
 WATER_TERMS = {
-    "vapour": [
-        ("boundary_convergence", "Convergence, boundary method"),
-        ("area_convergence", "Convergence, area method"),
-        ("pw_tendency", "Change of precipitable water, dW/dt"),
-        ("p_minus_e", "P − E"),
-        ("p_minus_e_uncorrected", "P − E with the files' winds (no mass correction)"),
-        ("mass_correction_convergence", "Change made by the mass correction"),
-        ("precipitation", "Precipitation in the files"),
-        ("evaporation", "Evaporation in the files (upward)"),
-        ("p_minus_e_observed", "P − E from the files"),
-        ("closure_residual", "Closure residual (files − budget)"),
-    ],
-    "total": [
-        ("total_water_convergence", "Convergence of total water"),
-        ("total_water_tendency", "Change of the total-water column"),
-        ("p_minus_e_total_water", "P − E, total water"),
-        ("p_minus_e_total_water_uncorrected", "P − E, total water, files' winds"),
-    ],
+    "vapour": [(t.name, t.label) for t in terms.table_terms() if t.family != "total_water"],
+    "total": [(n, terms.term(n).label) for n in (
+        "total_water_convergence", "total_water_tendency", "p_minus_e_total_water",
+        "p_minus_e_total_water_uncorrected")],
 }
+PERIOD_TERMS = WATER_TERMS["vapour"]
 
 
 def correction_state(budget) -> str:
@@ -817,12 +806,13 @@ def _correction_rows(budget, start, end):
     rows = []
     if "dry_air_residual_pressure" in budget:
         r = np.asarray(budget["dry_air_residual_pressure"].values[start:end + 1], float)
-        rows.append(_row("Dry-air residual (files' winds)", f"{number(np.mean(r))} hPa/day",
+        rows.append(_row(terms.term("dry_air_residual_pressure").label,
+                         f"{number(np.mean(r))} hPa/day",
                          "", np.mean(r)))
     if "mass_correction_speed" in budget:
         c = np.asarray(budget["mass_correction_speed"].values[start:end + 1], float) * 100
-        rows.append(_row("Mass-correction wind, outward", f"{number(np.mean(c))} cm/s",
-                         "", np.mean(c)))
+        rows.append(_row(terms.term("mass_correction_speed").label,
+                         f"{number(np.mean(c))} cm/s", "", np.mean(c)))
     rows.append(_row("Mass correction", correction_state(budget), ""))
     return rows
 
@@ -837,7 +827,7 @@ def _dry_rows(budget, start, end, seconds, area):
     sl = slice(start, end + 1)
     rows = []
     imp = np.asarray(budget["dry_air_import"].values[sl], float)
-    rows.append(_row("Dry-air import", f"{number(np.mean(imp))} kg/s",
+    rows.append(_row(terms.term("dry_air_import").label, f"{number(np.mean(imp))} kg/s",
                      f"{number(_integral(imp, seconds, 1.0))} kg", np.mean(imp),
                      _integral(imp, seconds, 1.0)))
 
@@ -848,21 +838,22 @@ def _dry_rows(budget, start, end, seconds, area):
                          np.mean(v), total))
 
     hpa("Dry-air import as surface-pressure change", imp / area)
-    hpa("Dry-air mass convergence", budget["dry_air_convergence"].values[sl])
+    hpa(terms.term("dry_air_convergence").label, budget["dry_air_convergence"].values[sl])
     if "pw_tendency" in budget:
         hpa("Surface-pressure tendency (dry air + vapour)",
             budget["dry_air_tendency"].values[sl] + budget["pw_tendency"].values[sl])
-    hpa("Dry-air mass tendency", budget["dry_air_tendency"].values[sl])
-    hpa("Residual (tendency − convergence)", budget["dry_air_residual"].values[sl])
+    hpa(terms.term("dry_air_tendency").label, budget["dry_air_tendency"].values[sl])
+    hpa(f"{terms.term('dry_air_residual').label} (tendency − convergence)",
+        budget["dry_air_residual"].values[sl])
     r = np.asarray(_pressure_rate(budget["dry_air_residual"].values[sl]), float)
     rows.append(_row("Typical size of the residual (mean of |residual|)",
                      f"{number(np.mean(np.abs(r)))} hPa/day", "", np.mean(np.abs(r))))
     c = np.asarray(budget["mass_correction_speed"].values[sl], float) * 100
-    rows.append(_row("Mass-correction wind, outward", f"{number(np.mean(c))} cm/s", "",
-                     np.mean(c)))
+    rows.append(_row(terms.term("mass_correction_speed").label, f"{number(np.mean(c))} cm/s",
+                     "", np.mean(c)))
     rows.append(_row("Mass correction", correction_state(budget), ""))
     mu = np.asarray(budget["dry_air_mass"].values[sl], float) * STANDARD_GRAVITY / 100
-    rows.append(_row("Dry-air mass (mean; start → end)", f"{number(np.mean(mu))} hPa",
+    rows.append(_row(f"{terms.term('dry_air_mass').label} (mean; start → end)", f"{number(np.mean(mu))} hPa",
                      f"{number(mu[0])} → {number(mu[-1])} hPa", np.mean(mu), mu[-1] - mu[0]))
     return rows
 

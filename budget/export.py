@@ -14,57 +14,21 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from . import terms
 from .errors import RequestError
-from .units import convert, kg_m2_to_mm
 
-#: CSV columns after `time`: (column name, Dataset variable, unit key). Unit key "mm" turns
-#: kg m-2 into mm, "kg/s" of a transport stays as it is, the rate units go through
-#: budget.units.convert, "raw" keeps the variable's own units (named in the column). Add a term
-#: here to export it; a variable missing from the Dataset is skipped.
-CSV_COLUMNS = [
-    ("precipitable_water_mm", "precipitable_water", "mm"),
-    ("vapour_convergence_mm_day", "vapour_convergence", "mm/day"),
-    ("pw_tendency_mm_day", "pw_tendency", "mm/day"),
-    ("p_minus_e_mm_day", "p_minus_e", "mm/day"),
-    ("vapour_import_kg_s", "vapour_import", "transport"),
-    ("inflow_kg_s", "inflow", "transport"),
-    ("outflow_kg_s", "outflow", "transport"),
-    ("boundary_convergence_mm_day", "boundary_convergence", "mm/day"),
-    ("area_convergence_mm_day", "area_convergence", "mm/day"),
-    ("p_minus_e_kg_s", "p_minus_e", "kg/s"),
-    ("p_minus_e_m3_s", "p_minus_e", "m3/s"),
-    # closing the budget (budget.closure): level inputs / files with P, E or condensate only
-    ("p_minus_e_uncorrected_mm_day", "p_minus_e_uncorrected", "mm/day"),
-    ("mass_correction_mm_day", "mass_correction_convergence", "mm/day"),
-    ("mass_correction_speed_m_s", "mass_correction_speed", "raw"),
-    ("vapour_import_uncorrected_kg_s", "vapour_import_uncorrected", "transport"),
-    ("dry_air_mass_kg_m2", "dry_air_mass", "raw"),
-    ("dry_air_residual_kg_m2_s", "dry_air_residual", "raw"),
-    ("dry_air_residual_hpa_day", "dry_air_residual_pressure", "raw"),
-    ("precipitation_mm_day", "precipitation", "mm/day"),
-    ("evaporation_mm_day", "evaporation", "mm/day"),
-    ("p_minus_e_observed_mm_day", "p_minus_e_observed", "mm/day"),
-    ("closure_residual_mm_day", "closure_residual", "mm/day"),
-    ("total_water_mm", "total_water_content", "mm"),
-    ("total_water_convergence_mm_day", "total_water_convergence", "mm/day"),
-    ("p_minus_e_total_water_mm_day", "p_minus_e_total_water", "mm/day"),
-]
+#: CSV columns after `time`: (column name, Dataset variable, display unit), read from the term
+#: catalogue (budget/terms.py); a variable missing from the Dataset is skipped.
+CSV_COLUMNS = [(c.name, t.name, c.unit) for c, t in terms.csv_columns()]
 
 
 def to_frame(ds: xr.Dataset) -> pd.DataFrame:
     """The budget series as a table with unit-bearing column names, `time` as ISO 8601 UTC."""
     area = float(ds.attrs["region_area_m2"])
     cols = {"time": [np.datetime_as_string(t, unit="s") + "Z" for t in ds["time"].values]}
-    for name, var, unit in CSV_COLUMNS:
-        if var not in ds:
-            continue
-        vals = ds[var].values
-        if unit == "mm":
-            cols[name] = kg_m2_to_mm(vals)
-        elif unit in ("transport", "raw"):
-            cols[name] = np.asarray(vals, float)
-        else:
-            cols[name] = convert(vals, unit, area)
+    for col, term in terms.csv_columns():
+        if term.name in ds:
+            cols[col.name] = terms.to_display(term, ds[term.name].values, col.unit, area)
     return pd.DataFrame(cols)
 
 
@@ -74,6 +38,10 @@ def to_csv_text(ds: xr.Dataset) -> str:
 
 def _netcdf_ready(ds: xr.Dataset) -> xr.Dataset:
     out = ds.copy()
+    for name in out.data_vars:  # CF standard names from the catalogue where the engine left none
+        t = terms.BY_NAME.get(name)
+        if t is not None and t.standard_name and "standard_name" not in out[name].attrs:
+            out[name].attrs["standard_name"] = t.standard_name
     for name in list(out.coords) + list(out.data_vars):
         if out[name].dtype == object:
             out[name] = out[name].astype(str)

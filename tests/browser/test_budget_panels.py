@@ -189,16 +189,16 @@ def test_the_budget_selector_shows_the_dry_air_mass_budget(app_page, sample):
         "document.querySelector('#series .js-plotly-plot').layout.title.text"
         ".includes('Dry-air mass budget')", timeout=15_000)
     resid = next(t for t in graph_traces(page, "series")
-                 if t["name"] == "residual (tendency − convergence)")
+                 if t["name"] == "Dry-air residual")
     # a column-mass rate R (kg m-2 s-1) is the surface-pressure tendency R·g (hydrostatic
     # balance), standard gravity 9.80665 m s-2 (ISO 80000-3); in hPa/day × 86400 / 100
     assert STANDARD_GRAVITY == 9.80665
     np.testing.assert_allclose(resid["y"], ds["dry_air_residual"].values * 9.80665 * 864,
                                rtol=1e-9, atol=1e-12)
     table = page.inner_text("#budget-table")
-    for term in ("Dry-air import", "Dry-air import as surface-pressure change",
-                 "Dry-air mass convergence", "Surface-pressure tendency", "Residual",
-                 "Mass-correction wind, outward"):
+    for term in ("Net dry-air import", "Dry-air import as surface-pressure change",
+                 "Dry-air convergence", "Surface-pressure tendency", "Dry-air residual",
+                 "Mass-correction speed (outward)"):
         assert term in table
     assert "kg/s" in table and "hPa/day" in table and "cm/s" in table
     assert "e+" not in table  # one number format: grouped digits, never an exponent

@@ -1,0 +1,115 @@
+"""Plotly builders for where the water comes from: layers by edge, mean flow against transient
+eddies, the event catalogue and datasets side by side.
+
+Pure functions of data (a budget Dataset from budget.ledger.compute, the split of
+budget.eddies.decompose, the catalogue of budget.events.find_events, a stack of
+budget.compare.stack); no Dash imports.  Units are in every axis title.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import plotly.graph_objects as go
+
+from app.figures import ACCENT, FONT, GRID, INK, MUTED, PAPER, WARM, empty_figure
+
+#: Layer colours, surface (dark) to top (light): a sequential ramp of our own, readable when
+#: stacked.
+LAYER_COLOURS = ["#1f3b4d", "#2a5a6e", "#35798a", "#4d979c", "#74b3a5", "#a3cdb0", "#d2e5c6", "#eef3dc"]
+DATASET_COLOURS = [ACCENT, WARM, "#5d4b8a", "#6b8e23", "#8c564b", "#3b4a57"]
+
+SAMPLING_NOTE = (
+    "The split depends on the sampling interval: fields sampled daily instead of 6-hourly miss "
+    "much of the transient-eddy part (Seager and Henderson 2013, J. Climate 26)."
+)
+
+
+def _layout(fig: go.Figure, title: str, **extra) -> go.Figure:
+    fig.update_layout(
+        title=dict(text=title, x=0.01, font=dict(size=14)),
+        font=dict(family=FONT, color=INK, size=12), paper_bgcolor=PAPER, plot_bgcolor=PAPER,
+        margin=dict(l=70, r=20, t=50, b=60), legend=dict(orientation="h", y=-0.25, x=0),
+        **extra,
+    )
+    fig.update_xaxes(gridcolor=GRID, zerolinecolor=MUTED)
+    fig.update_yaxes(gridcolor=GRID, zerolinecolor=MUTED)
+    return fig
+
+
+def _period_mean(da, start: int, end: int | None):
+    sub = da.isel(time=slice(start, end))
+    return sub.mean("time", skipna=True)
+
+
+def layer_edge_figure(budget, start: int = 0, end: int | None = None, name: str | None = None) -> go.Figure:
+    """Stacked bars: the period-mean import of each layer through each edge (kg/s)."""
+    if "layer_edge_import" not in budget:
+        return empty_figure("No layers in this budget: choose layer bounds to see the import by height.")
+    mean = _period_mean(budget["layer_edge_import"], start, end)  # (layer, edge)
+    edges = [str(e) for e in budget["edge"].values]
+    fig = go.Figure()
+    for i, layer in enumerate(budget["layer"].values):
+        fig.add_bar(x=edges, y=mean.sel(layer=layer).values, name=str(layer),
+                    marker_color=LAYER_COLOURS[i % len(LAYER_COLOURS)],
+                    hovertemplate="edge %{x}<br>" + str(layer) + ": %{y:.3s} kg/s<extra></extra>")
+    who = f" — {name}" if name else ""
+    return _layout(fig, f"Import by layer and edge{who}", barmode="relative",
+                   xaxis_title="edge", yaxis_title="period-mean import (kg/s, + into the region)")
+
+
+def eddy_figure(split, name: str | None = None) -> go.Figure:
+    """Bars of the mean-flow and transient-eddy parts of the import, per edge and in total."""
+    edges = [str(e) for e in split["edge"].values] + ["total"]
+    fig = go.Figure()
+    for part, colour, label in (("mean_flow", ACCENT, "mean flow"), ("transient_eddy", WARM, "transient eddies")):
+        vals = list(split["edge_import"].sel(part=part).values) + [float(split["vapour_import"].sel(part=part))]
+        fig.add_bar(x=edges, y=vals, name=label, marker_color=colour,
+                    hovertemplate="%{x}: %{y:.3s} kg/s<extra>" + label + "</extra>")
+    who = f" — {name}" if name else ""
+    fig = _layout(fig, f"Mean flow and transient eddies{who}", barmode="group",
+                  xaxis_title="edge", yaxis_title="period-mean import (kg/s)")
+    fig.add_annotation(text=SAMPLING_NOTE, xref="paper", yref="paper", x=0, y=1.0, yanchor="bottom",
+                       showarrow=False, font=dict(size=10, color=MUTED), align="left")
+    return fig
+
+
+def event_rows(events) -> list[dict]:
+    """Rows for a sortable table of the event catalogue (numbers rounded for reading)."""
+    rows = []
+    for i, r in enumerate(events.to_dict("records")):
+        rows.append({
+            "event": i + 1,
+            "start": r["start"], "end": r["end"],
+            "duration_h": round(float(r["duration_h"]), 1),
+            "total_p_minus_e_mm": round(float(r["total_p_minus_e_mm"]), 2),
+            "peak_p_minus_e_mm_day": round(float(r["peak_p_minus_e_mm_day"]), 2),
+            "mean_boundary_ivt_kg_m_s": None if not np.isfinite(r["mean_boundary_ivt_kg_m_s"]) else round(float(r["mean_boundary_ivt_kg_m_s"]), 1),
+            "top_edge": r["top_edge"], "top_layer": r["top_layer"],
+            "ar_share_percent": None if not np.isfinite(r["ar_share"]) else round(100 * float(r["ar_share"]), 1),
+        })
+    return rows
+
+
+EVENT_COLUMNS = [
+    ("event", "#"), ("start", "start (UTC)"), ("end", "end (UTC)"), ("duration_h", "duration (h)"),
+    ("total_p_minus_e_mm", "total P − E (mm)"), ("peak_p_minus_e_mm_day", "peak P − E (mm/day)"),
+    ("mean_boundary_ivt_kg_m_s", "mean boundary IVT (kg m⁻¹ s⁻¹)"), ("top_edge", "main edge"),
+    ("top_layer", "main layer"), ("ar_share_percent", "AR share (%)"),
+]
+
+
+def datasets_figure(stacked, variable: str = "p_minus_e", scale: float = 86400.0, unit: str = "mm/day") -> go.Figure:
+    """One line per dataset on the common time axis, with the spread shaded."""
+    if variable not in stacked:
+        return empty_figure(f"No {variable} in these budgets.")
+    t = stacked["time"].values
+    v = stacked[variable] * scale
+    fig = go.Figure()
+    lo, hi = v.min("dataset").values, v.max("dataset").values
+    fig.add_scatter(x=np.concatenate([t, t[::-1]]), y=np.concatenate([hi, lo[::-1]]), fill="toself",
+                    fillcolor="rgba(107,119,128,0.18)", line=dict(width=0), name="spread", hoverinfo="skip")
+    for i, d in enumerate(stacked["dataset"].values):
+        fig.add_scatter(x=t, y=v.sel(dataset=d).values, mode="lines", name=str(d),
+                        line=dict(color=DATASET_COLOURS[i % len(DATASET_COLOURS)], width=2))
+    label = stacked[variable].attrs.get("long_name", variable)
+    return _layout(fig, f"{label} by dataset", xaxis_title="time (UTC)", yaxis_title=f"{variable.replace('_', ' ')} ({unit})")
