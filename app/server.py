@@ -111,13 +111,12 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) 
         cache_dir = tempfile.mkdtemp(prefix="fluxfence-cache-")
     cache_dir = Path(cache_dir)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    state = configure(Settings(
+    configure(Settings(
         sources=tuple(Source(id=s["id"], label=s["label"], paths=tuple(s["paths"]),
                              root=s.get("root"), basin=s.get("basin")) for s in sources),
         cache_dir=cache_dir, assets=ASSETS, upload_limit=UPLOAD_LIMIT_BYTES,
         job_threads=job_threads,
     ))
-    state.warm()  # open the first field set now, not when the first page asks
 
     app = dash.Dash(
         __name__,
@@ -149,6 +148,9 @@ def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050, workers: int =
     if int(workers) < 1 or int(job_threads) < 1:
         raise RequestError("--workers and --job-threads take a whole number of at least 1.")
     app = create_app(paths=paths, data_dir=data_dir, job_threads=job_threads)
+    from .state import current
+
+    current().warm()  # open the first field set now, not when the first page asks
     if host not in ("127.0.0.1", "localhost", "::1"):
         print("note: serving beyond this machine; anyone who can reach it can use it.")
     print(f"Fluxfence dashboard on http://{host}:{port} ({workers} request threads, "

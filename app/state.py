@@ -149,7 +149,8 @@ class AppState:
         with lock:
             hit = self._opened.get(sid)
             if hit is None or hit[0] != paths:
-                hit = (paths, open_fields(paths))
+                with _OPENING:
+                    hit = (paths, open_fields(paths))
                 self._opened[sid] = hit
             return hit[1]
 
@@ -211,6 +212,10 @@ class AppState:
         }, sort_keys=True, default=str)
         return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
+
+#: one file opening at a time in this process: the HDF5 library under NetCDF-4 is not safe
+#: for concurrent opens from several threads (reads go through xarray's own lock)
+_OPENING = threading.Lock()
 
 _CURRENT: list = []  # the one AppState of this server (a list so tests can reconfigure)
 
