@@ -13,6 +13,7 @@ import sys
 import time
 from pathlib import Path
 
+from app import cli_records
 from budget import __version__
 from budget.errors import FluxfenceError, RequestError
 
@@ -107,6 +108,7 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
+    tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
     fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
     for w in list(fields.warnings) + list(region.warnings):
@@ -118,9 +120,11 @@ def cmd_run(args) -> int:
     for w in json.loads(ds.attrs.get("warnings", "[]")):
         if w not in fields.warnings:
             print(f"warning: {w}", file=sys.stderr)
-    write(ds, out)
+    if "periods" not in tables:  # --aggregate puts the period table in --out
+        write(ds, out)
     if args.netcdf:
         write(ds, args.netcdf)
+    cli_records.write_tables(args, ds, tables)
     if not args.quiet:
         print(_summary(ds))
     if args.eddies:
@@ -154,6 +158,8 @@ def _run_each_feature(args) -> int:
     from budget.region import list_features, load_region
     from budget.stencil import Grid, compile_stencil
 
+    if cli_records.wanted(args):
+        raise RequestError("--aggregate, --climatology and --discharge work on one budget; leave out --each-feature.")
     if not args.region:
         raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
     if args.feature:
@@ -241,7 +247,7 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
     r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
-    r.add_argument("--bbox", help="box W,S,E,N in degrees (W > E crosses the antimeridian)")
+    r.add_argument("--bbox", help="box W,S,E,N in degrees, e.g. --bbox -100,30,-80,45 (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
     r.add_argument("--eddies", action="store_true", help="also split the period-mean import into mean-flow and transient-eddy parts (level inputs)")
     r.add_argument("--each-feature", action="store_true", help="one budget per feature of --region; --out is then a folder")
@@ -260,6 +266,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-period", metavar="DURATION", help="accumulated precipitation/evaporation restart every DURATION (1h: each value covers the step before it; 12h; none: never)")
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
+    cli_records.add_options(r)
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")
@@ -278,9 +285,34 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+#: Options whose value may start with a minus (a longitude west of Greenwich).
+_SIGNED_VALUE_OPTIONS = ("--bbox",)
+
+
+def _join_signed_values(argv: list[str]) -> list[str]:
+    """'--bbox -100,30,-80,45' as users type it: argparse would read the value as an option
+    (it only takes plain numbers like -100 as values), so join it to '--bbox=-100,30,-80,45'."""
+    import re
+
+    out, i = [], 0
+    while i < len(argv):
+        tok = argv[i]
+        if tok == "--":
+            return out + argv[i:]
+        nxt = argv[i + 1] if i + 1 < len(argv) else ""
+        if tok in _SIGNED_VALUE_OPTIONS and re.match(r"-[0-9.]", nxt):
+            out.append(f"{tok}={nxt}")
+            i += 2
+            continue
+        out.append(tok)
+        i += 1
+    return out
+
+
 def main(argv=None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    argv = list(sys.argv[1:] if argv is None else argv)
+    args = parser.parse_args(_join_signed_values([str(a) for a in argv]))
     try:
         return args.func(args)
     except FluxfenceError as exc:

@@ -10,11 +10,8 @@ from __future__ import annotations
 
 import base64
 import binascii
-import io
 import re
-import tempfile
 import uuid
-import zipfile
 from pathlib import Path
 
 import numpy as np
@@ -27,7 +24,6 @@ from .messages import problem, slug
 from .state import current
 
 MAX_REGIONS = 30
-EXPANDED_LIMIT_BYTES = 64 * 2**20  # what a zipped upload may expand to
 
 
 def _out(component, prop):
@@ -133,42 +129,15 @@ def decode_upload(contents: str, filename: str) -> bytes:
             f"The file '{filename}' is {len(data) / 2**20:.1f} MB, more than the "
             f"{limit / 2**20:g} MB allowed for a region; simplify the outline or zip the "
             "shapefile.")
-    if Path(filename).suffix.lower() == ".zip":
-        check_expanded_size(data, filename)
     return data
 
 
-def check_expanded_size(data: bytes, filename: str, limit: int = EXPANDED_LIMIT_BYTES) -> None:
-    """Refuse a zip whose members would expand past ``limit`` (read from its directory, not
-    by expanding it)."""
-    try:
-        with zipfile.ZipFile(io.BytesIO(data)) as zf:
-            size = sum(max(i.file_size, 0) for i in zf.infolist())
-    except zipfile.BadZipFile:
-        raise RegionError(f"The file '{filename}' is not a valid .zip archive; zip the "
-                          "shapefile again.") from None
-    if size > limit:
-        raise RegionError(
-            f"The archive '{filename}' expands to {size / 2**20:.0f} MB, more than the "
-            f"{limit / 2**20:g} MB allowed for a region; simplify the outline before zipping it.")
-
-
 def upload_features(filename: str, data: bytes) -> list[dict]:
+    """The features of an uploaded file; the region package picks the reader by the name and
+    reads a zip in memory, capped on its expanded size (budget.region.archive)."""
     from budget.region import list_features
 
-    ext = Path(filename).suffix.lower()
-    if ext in (".geojson", ".json"):
-        return list_features(data)
-    if ext == ".zip":
-        with tempfile.TemporaryDirectory() as tmp:
-            p = Path(tmp) / "upload.zip"
-            p.write_bytes(data)
-            return list_features(str(p))
-    if ext == ".shp":
-        return [{"index": 0, "name": Path(filename).stem}]
-    raise RegionError(
-        f"The uploaded file '{filename}' has an unsupported type '{ext or '(none)'}'; upload "
-        ".geojson, .json or a .zip holding a shapefile.")
+    return list_features(data, filename=filename)
 
 
 # ---------------------------------------------------------------------------------------------

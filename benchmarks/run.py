@@ -113,7 +113,7 @@ def _truth(name, nt):
 
     from benchmarks import synthetic
     from budget import sphere
-    from tests import analytic
+    from budget import testing as analytic
 
     lon, lat = REGIONS[name]
     geom = shapely.Polygon(list(zip(lon, lat)))
@@ -163,14 +163,14 @@ def measure_floor(path, region_name, nt):
     import h5py
 
     from budget.fields import open_fields
-    from budget.ledger import GATHER_GAP, _runs
+    from budget.blocks import GATHER_GAP, runs
     from budget.stencil import Grid, compile_stencil
 
     fields = open_fields(path)
     st = compile_stencil(_region(region_name), Grid.from_fields(fields))
     rows, cols = st.rows, st.cols
-    rr = _runs(np.unique(rows), GATHER_GAP)
-    cr = _runs(np.unique(cols), GATHER_GAP)
+    rr = runs(np.unique(rows), GATHER_GAP)
+    cr = runs(np.unique(cols), GATHER_GAP)
     with h5py.File(path, "r") as h:
         for v in ("qu", "qv", "w"):
             h[v][0, 0, 0]  # open the datasets first

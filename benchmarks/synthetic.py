@@ -1,6 +1,6 @@
 """Synthetic fields for the benchmark, written to NetCDF once and reused from a cache folder.
 
-The fields are analytic (tests/analytic.py): Q = g(t)·∇χ + h(t)·k×∇ψ with χ a sum of
+The fields are analytic (budget.testing): Q = g(t)·∇χ + h(t)·k×∇ψ with χ a sum of
 spherical harmonics, so the area-mean convergence over any polygon is known exactly:
 −g(t)·∬∇²χ dA / area (divergence theorem; ∇²Y_l^m = −l(l+1)Y_l^m/a²).  Precipitable water
 is (20 + 10 cos²φ)·(1 + 0.05 sin(2πt/24 h)).  Everything is float32 on disk.
@@ -22,7 +22,7 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
-from tests import analytic  # noqa: E402  (one home for the analytic fields)
+from budget import testing as analytic  # noqa: E402  (one home for the analytic fields)
 
 TIME_CHUNK = 24
 STEP_HOURS = 1

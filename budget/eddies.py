@@ -21,39 +21,53 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
+from . import plausible
+from .blocks import Cells, Gatherer, block_steps
 from .constants import STANDARD_GRAVITY
 from .errors import RequestError
-from .ledger import _Gatherer, _as_fields, _block_steps, _check_finite, _time_window
+from .ledger import as_fields
 from .stencil import Grid, compile_stencil
+from .timeaxis import time_window, window_offset
 
 PARTS = ("total", "mean_flow", "transient_eddy")
 
 
 def decompose(fields, region, start=None, end=None, stencil=None) -> xr.Dataset:
     """Period-mean vapour import of ``region`` split into mean-flow and transient-eddy parts."""
-    fields = _as_fields(fields)
+    fields = as_fields(fields)
     if fields.kind != "levels":
         raise RequestError(
             "The mean-flow / transient-eddy split needs winds and humidity on levels (u, v, q, ps); "
             "these fields are pre-integrated columns, whose time means cannot be split."
         )
     st = stencil if stencil is not None else compile_stencil(region, Grid.from_fields(fields))
-    ds = _time_window(fields.ds, start, end)
+    ds = time_window(fields.ds, start, end)
     nt = ds.sizes["time"]
     if nt < 2:
         raise RequestError("The transient-eddy split needs at least two time steps; widen the period.")
-    rows_u, r_pos = np.unique(st.rows, return_inverse=True)
-    cols_u, c_pos = np.unique(st.cols, return_inverse=True)
-    chunk = _block_steps(fields, st, ds, nt)
+    sums = _layer_sums(fields, st, window_offset(fields.ds["time"].values, ds["time"].values), nt,
+                       block_steps(fields.kind, st, ds, nt))
+    return _split(sums, st, ds["time"].values, nt)
+
+
+def _layer_sums(fields, st, offset: int, nt: int, chunk: int) -> dict:
+    """Time sums of Δp, qΔp, uΔp, vΔp per layer and cell, and of the column qVΔp per cell.
+
+    Blocks read the un-windowed fields at shifted steps (as the budget does, budget.blocks),
+    and every value that counts is checked (budget.plausible).
+    """
+    cells = Cells.of(st)
+    full = fields.ds[["u", "v", "q", "ps"]]
     sums = None
-    for t0 in range(0, nt, chunk):
-        ts = slice(t0, min(nt, t0 + chunk))
-        g = _Gatherer(ds[["u", "v", "q", "ps"]], rows_u, cols_u, r_pos, c_pos, ts)
+    for t0 in range(offset, offset + nt, chunk):
+        ts = slice(t0, min(offset + nt, t0 + chunk))
+        g = Gatherer(full, cells, ts)
         u, v, q, ps = g("u"), g("v"), g("q"), g("ps")
+        chk = plausible.Checker(plausible.Where(fields, st, t0))
+        plausible.check_surface_pressure(chk, ps)
         dp = np.moveaxis(fields.vertical.thickness(ps), 0, 1)  # (time, level, cell)
         air = dp > 0
-        for name, arr in (("u", u), ("v", v), ("q", q)):
-            _check_finite(name, arr, air, fields, st, t0)
+        plausible.check_levels(chk, u, v, q, air)
         u, v, q = (np.where(air, x, 0.0) for x in (u, v, q))
         part = {
             "dp": dp.sum(0),
@@ -64,7 +78,11 @@ def decompose(fields, region, start=None, end=None, stencil=None) -> xr.Dataset:
             "qvdp": (q * v * dp).sum((0, 1)),
         }
         sums = part if sums is None else {k: sums[k] + part[k] for k in sums}
+    return sums
 
+
+def _split(sums: dict, st, t, nt: int) -> xr.Dataset:
+    """Total, mean-flow and transient-eddy imports from the layer sums."""
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = {k: np.where(sums["dp"] > 0, sums[k] / sums["dp"], 0.0) for k in ("qdp", "udp", "vdp")}
     dp_mean = sums["dp"] / nt
@@ -79,7 +97,6 @@ def decompose(fields, region, start=None, end=None, stencil=None) -> xr.Dataset:
         imports.append(-flux.sum())
         edges.append(-(st.edge_sum @ flux))
     imports = np.asarray(imports)
-    t = ds["time"].values
     return xr.Dataset(
         {
             "vapour_import": (("part",), imports, {"units": "kg s-1", "long_name": "period-mean water-vapour import"}),

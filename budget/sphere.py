@@ -24,6 +24,7 @@ from .constants import EARTH_RADIUS
 
 __all__ = [
     "ring_area",
+    "ring_areas",
     "cell_areas",
     "arc_lengths",
     "great_circle_points",
@@ -66,11 +67,19 @@ def ring_area(lon_deg, lat_deg, radius: float = EARTH_RADIUS) -> float:
     lon, lat = _as_ring(lon_deg, lat_deg)
     if lon.size < 3:
         return 0.0
-    lam = np.radians(lon)
-    phi = np.radians(lat)
-    dlam = np.roll(lam, -1) - lam
-    s = _edge_sin_integral(phi, np.roll(phi, -1), dlam)
-    return float(-radius * radius * np.sum(s))
+    return float(ring_areas(lon[None, :], lat[None, :], radius)[0])
+
+
+def ring_areas(lon_deg, lat_deg, radius: float = EARTH_RADIUS) -> np.ndarray:
+    """Signed areas (m²) of many rings at once: arrays (k, n), n vertices each, not closed.
+
+    The same closed form as ring_area, row by row.
+    """
+    lam = np.radians(np.asarray(lon_deg, dtype=float))
+    phi = np.radians(np.asarray(lat_deg, dtype=float))
+    dlam = np.roll(lam, -1, axis=-1) - lam
+    s = _edge_sin_integral(phi, np.roll(phi, -1, axis=-1), dlam)
+    return -radius * radius * np.sum(s, axis=-1)
 
 
 def cell_areas(lat_edges_deg, lon_edges_deg, radius: float = EARTH_RADIUS) -> np.ndarray:
@@ -109,7 +118,8 @@ def arc_lengths(lon_deg, lat_deg, radius: float = EARTH_RADIUS, closed: bool = F
     return radius * (speed @ _GL_W)
 
 
-def _to_xyz(lon_deg, lat_deg):
+def to_xyz(lon_deg, lat_deg):
+    """Unit vectors (…, 3) on the sphere of longitudes and latitudes in degrees."""
     lam = np.radians(np.asarray(lon_deg, dtype=float))
     phi = np.radians(np.asarray(lat_deg, dtype=float))
     return np.stack([np.cos(phi) * np.cos(lam), np.cos(phi) * np.sin(lam), np.sin(phi)], axis=-1)
@@ -125,8 +135,8 @@ def great_circle_points(lon1, lat1, lon2, lat2, n: int):
     """
     if n < 2:
         raise ValueError("great_circle_points needs n >= 2")
-    p1 = _to_xyz(lon1, lat1)
-    p2 = _to_xyz(lon2, lat2)
+    p1 = to_xyz(lon1, lat1)
+    p2 = to_xyz(lon2, lat2)
     omega = np.arctan2(np.linalg.norm(np.cross(p1, p2)), np.dot(p1, p2))
     t = np.linspace(0.0, 1.0, n)
     if omega < 1e-15:
@@ -168,7 +178,7 @@ def _continuous(lon, start=None):
 
 def great_circle_lat_at_lon(lon1, lat1, lon2, lat2, lon0) -> float:
     """Latitude (degrees) where the great circle through points 1 and 2 meets meridian lon0."""
-    n = np.cross(_to_xyz(lon1, lat1), _to_xyz(lon2, lat2))
+    n = np.cross(to_xyz(lon1, lat1), to_xyz(lon2, lat2))
     lam0 = np.radians(lon0)
     num = -(n[0] * np.cos(lam0) + n[1] * np.sin(lam0))
     sign = 1.0 if n[2] >= 0 else -1.0

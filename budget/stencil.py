@@ -39,9 +39,16 @@ class Grid:
     lat: np.ndarray  # degrees, ascending
     lon: np.ndarray  # degrees, ascending
     periodic: bool
+    #: relative shortfall of the summed cover against the region's area still counted as full
+    cover_rtol = 1e-6
 
     @classmethod
-    def from_fields(cls, fields) -> "Grid":
+    def from_fields(cls, fields):
+        """The fields' grid: this class for longitude-latitude, or the fields' own
+        `native_grid` (a budget.gridmap.ProjectedGrid) for rotated and projected grids."""
+        native = getattr(fields, "native_grid", None)
+        if native is not None:
+            return native
         return cls(np.asarray(fields.lat, float), np.asarray(fields.lon, float), bool(fields.periodic))
 
     @property
@@ -71,6 +78,26 @@ class Grid:
             first = 0.5 * (lon[0] + lon[-1] - 360.0)
             return np.concatenate([[first], mid, [first + 360.0]])
         return np.concatenate([[lon[0] - (mid[0] - lon[0])], mid, [lon[-1] + (lon[-1] - mid[-1])]])
+
+    def spacing_deg(self) -> float:
+        """The smaller grid spacing, degrees."""
+        return min(abs(self.dlat), abs(self.dlon))
+
+    def cell_area_near(self, lat: float, radius: float = EARTH_RADIUS) -> float:
+        """The area (m²) of a typical cell at latitude lat."""
+        jc = np.clip(np.searchsorted(self.lat, lat), 0, self.lat.size - 1)
+        return radius**2 * np.radians(abs(self.dlon)) * np.radians(abs(self.dlat)) * np.cos(np.radians(self.lat[jc]))
+
+    def point_text(self, flat: int) -> str:
+        j, i = divmod(int(flat), self.shape[1])
+        return f"({self.lon[i]:g}°E, {self.lat[j]:g}°N)"
+
+    def cover(self, geom, radius: float = EARTH_RADIUS):
+        """Flat cell indices and spherical areas (m²) of each cell's part inside geom."""
+        return _cover_lonlat(geom, self, radius)
+
+    def divergence(self, cells, radius: float = EARTH_RADIUS):
+        return divergence_operator(self, cells, radius)
 
     def extent_text(self) -> str:
         le, ae = self.lon_edges, self.lat_edges
@@ -221,9 +248,12 @@ def _geometry_area(geom, radius) -> float:
     return total
 
 
-def cover_weights(region, grid: Grid, radius: float = EARTH_RADIUS):
+def cover_weights(region, grid, radius: float = EARTH_RADIUS):
     """Flat cell indices and the spherical area (m2) of each cell's part inside the region."""
-    geom = cover_geometry(region)
+    return grid.cover(cover_geometry(region), radius)
+
+
+def _cover_lonlat(geom, grid: Grid, radius: float):
     minx, miny, maxx, maxy = geom.bounds
     ae, le = grid.lat_edges, grid.lon_edges
     nlat, nlon = grid.shape
@@ -314,7 +344,7 @@ def divergence_operator(grid: Grid, cells: np.ndarray, radius: float = EARTH_RAD
 class Stencil:
     """Sparse weights of one region on one grid, acting on the touched cells."""
 
-    grid: Grid
+    grid: Grid  # or a budget.gridmap.ProjectedGrid
     touched: np.ndarray  # flat indices into the grid, sorted
     boundary: Boundary
     bu: sp.csr_matrix  # (npiece × ntouched): outward flux of each piece from Qu
@@ -340,9 +370,13 @@ class Stencil:
         return self.boundary.lengths()
 
 
-def compile_stencil(region, grid: Grid, radius: float = EARTH_RADIUS) -> Stencil:
-    """Compile region × grid into sparse weights; RegionError when the region leaves the grid."""
-    step = min(abs(grid.dlat), abs(grid.dlon)) / PIECES_PER_CELL
+def compile_stencil(region, grid, radius: float = EARTH_RADIUS) -> Stencil:
+    """Compile region × grid into sparse weights; RegionError when the region leaves the grid.
+
+    grid is a longitude-latitude `Grid` or a `budget.gridmap.ProjectedGrid`; both answer the
+    same questions (bilinear, cover, divergence, spacing_deg, cell_area_near, extent_text).
+    """
+    step = grid.spacing_deg() / PIECES_PER_CELL
     bnd = boundary_of(region, step)
     idx, w = grid.bilinear(bnd.mid_lon, bnd.mid_lat)
     fu, fv = bnd.normal_factors(radius)
@@ -353,21 +387,19 @@ def compile_stencil(region, grid: Grid, radius: float = EARTH_RADIUS) -> Stencil
     if area <= 0:
         raise RegionError("The region has no area; give at least three distinct vertices that enclose a surface.")
     covered = cov_area.sum()
-    if covered < area * (1 - 1e-6):
+    if covered < area * (1 - grid.cover_rtol):
         raise RegionError(
             f"{100 * (1 - covered / area):.1f}% of the region lies outside the data grid "
             f"({grid.extent_text()}); draw the region inside the fields or supply wider fields."
         )
-    # the typical cell area near the region
-    jc = np.clip(np.searchsorted(grid.lat, np.average(np.asarray(bnd.mid_lat))), 0, grid.lat.size - 1)
-    cell = radius**2 * np.radians(abs(grid.dlon)) * np.radians(abs(grid.dlat)) * np.cos(np.radians(grid.lat[jc]))
+    cell = grid.cell_area_near(float(np.average(np.asarray(bnd.mid_lat))), radius)
     if area < cell:
         warnings.append(
             f"The region ({area / 1e6:,.0f} km²) is smaller than about one grid cell ({cell / 1e6:,.0f} km²): "
             "its budget rests on a few interpolated values; treat it with caution or use finer fields."
         )
 
-    du, dv = divergence_operator(grid, cov_idx, radius)
+    du, dv = grid.divergence(cov_idx, radius)
     div_u_full = du.T @ cov_area / area
     div_v_full = dv.T @ cov_area / area
     div_cells = np.union1d(du.indices, dv.indices)

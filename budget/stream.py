@@ -17,12 +17,13 @@ No parallel machinery of our own: dask's schedulers do all of it.
 Progress: ``progress(done, total)`` is called in the calling thread with the number of time
 steps finished so far (in any order of blocks), once at the start and after every block.
 
-Interruption and resume: with ``store=DIR`` every finished block is saved there (one ``.npz``
-file per block, written to a temporary name and renamed, so a block on disk is always
-complete) together with ``manifest.json`` naming the job (``key``). Running the same job again
-with the same store loads the finished blocks and computes only the rest; a store that holds
-another job is refused. Ctrl-C raises `Interrupted` (a KeyboardInterrupt) saying how many
-steps were done and where they are kept; nothing else is written.
+Interruption and resume: with ``store=DIR`` every finished block (a `budget.blocks.BlockSums`)
+is saved there (one ``.npz`` file per block in the BlockSums format, written to a temporary
+name and renamed, so a block on disk is always complete) together with ``manifest.json``
+naming the job (``key``) and the format. Running the same job again with the same store loads
+the finished blocks and computes only the rest; a store that holds another job, or blocks of
+an older format, is refused with a sentence. Ctrl-C raises `Interrupted` (a KeyboardInterrupt)
+saying how many steps were done and where they are kept; nothing else is written.
 """
 
 from __future__ import annotations
@@ -35,11 +36,12 @@ from pathlib import Path
 
 import numpy as np
 
+from .blocks import BLOCK_FORMAT, BlockSums
 from .errors import RequestError
 
 __all__ = ["run_blocks", "Interrupted", "BlockStore", "is_cluster"]
 
-_STORE_FORMAT = "fluxfence-blocks-1"
+_STORE_FORMAT = f"fluxfence-blocks-{BLOCK_FORMAT}"
 
 
 class Interrupted(KeyboardInterrupt):
@@ -69,7 +71,13 @@ class BlockStore:
                 old = json.loads(man.read_text())
             except (OSError, ValueError):
                 old = {}
-            if old.get("format") != _STORE_FORMAT or old.get("key") != self.key:
+            fmt = str(old.get("format", ""))
+            if fmt.startswith("fluxfence-blocks-") and fmt != _STORE_FORMAT:
+                raise RequestError(
+                    f"The folder {str(self.path)!r} holds finished steps written by another version of "
+                    f"Fluxfence ({fmt}, this one writes {_STORE_FORMAT}); delete it to start afresh."
+                )
+            if fmt != _STORE_FORMAT or old.get("key") != self.key:
                 raise RequestError(
                     f"The folder {str(self.path)!r} holds finished steps of a different run (other "
                     "fields, region, window or options); delete it or give another folder to resume into."
@@ -86,21 +94,22 @@ class BlockStore:
     def _file(self, ts: slice) -> Path:
         return self.path / f"block_{ts.start:09d}_{ts.stop:09d}.npz"
 
-    def load(self, ts: slice):
+    def load(self, ts: slice) -> BlockSums | None:
         f = self._file(ts)
         if not f.exists():
             return None
         try:
             with np.load(f, allow_pickle=False) as z:
-                return {k: z[k] for k in z.files}
+                arrays = {k: z[k] for k in z.files}
         except (OSError, ValueError):  # unreadable: compute the block again
             return None
+        return BlockSums.from_arrays(arrays, where=f"The folder {str(self.path)!r}")
 
-    def save(self, ts: slice, result: dict) -> None:
+    def save(self, ts: slice, result: BlockSums) -> None:
         f = self._file(ts)
         tmp = f.with_name(f".{f.name}.{uuid.uuid4().hex}.tmp")
         with open(tmp, "wb") as fh:
-            np.savez(fh, **{k: np.asarray(v) for k, v in result.items()})
+            np.savez(fh, **result.to_arrays())
         os.replace(tmp, f)
 
     def remove(self) -> None:

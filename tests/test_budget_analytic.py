@@ -2,7 +2,7 @@
 
 Reference: the divergence theorem on the sphere with Q = ∇χ + k×∇ψ and χ a sum of spherical
 harmonics, ∇²Y_l^m = −l(l+1) Y_l^m / a² (CHECKS.md; any text on spherical harmonics). The
-area integral of the analytic divergence is done by Gauss quadrature (tests/analytic.py),
+area integral of the analytic divergence is done by Gauss quadrature (budget.testing),
 independently of the engine's stencil.
 """
 
@@ -13,7 +13,7 @@ import shapely
 from budget import compute
 from budget.fields import open_fields
 from budget.region import region_from_bbox, region_from_geojson, region_from_vertices
-from tests import analytic
+from budget import testing as analytic
 
 POLY = ([2.0, 14.0, 21.0, 17.5, 9.0, 4.5], [41.0, 38.5, 46.0, 52.0, 49.0, 53.5])
 

@@ -76,7 +76,7 @@ def test_total_equals_the_mean_of_the_budget_series():
 
 
 def test_column_inputs_are_refused_with_a_reason():
-    from tests import analytic
+    from budget import testing as analytic
 
     with pytest.raises(RequestError, match="on levels"):
         decompose(open_fields(analytic.column_dataset(2.0)), region_from_bbox(0, 40, 10, 50))

@@ -23,7 +23,7 @@ from budget.errors import RequestError
 from budget.fields import open_fields
 from budget.mass import residual_as_pressure_tendency
 from budget.region import region_from_bbox, region_from_vertices
-from tests import analytic
+from budget import testing as analytic
 
 P_LEVELS = np.array([20000, 30000, 50000, 70000, 85000, 92500, 100000], float)
 TIMES = np.array(["2031-05-01T00", "2031-05-01T06", "2031-05-01T12"], dtype="datetime64[ns]")

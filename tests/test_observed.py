@@ -24,7 +24,7 @@ from budget import compute, observed
 from budget.errors import FieldsError, RequestError
 from budget.fields import open_fields
 from budget.region import region_from_bbox
-from tests import analytic
+from budget import testing as analytic
 from tests.test_mass import BOX, LAT, LON, P_LEVELS, levels_dataset
 
 HOURLY = pd.date_range("2031-07-01T00", "2031-07-03T00", freq="h").values.astype("datetime64[ns]")

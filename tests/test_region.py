@@ -8,16 +8,12 @@ Test inputs in tests/data/regions are invented shapes, not real places.
 import io
 import json
 import zipfile
-from pathlib import Path
 
 import numpy as np
 import pytest
-import shapefile  # pyshp
 from pyproj import CRS, Geod, Transformer
 
 from budget import sphere
-from budget.constants import EARTH_RADIUS
-from budget.errors import RegionError
 from budget.region import (
     Part,
     Region,
@@ -31,14 +27,9 @@ from budget.region import (
     region_from_vertices,
 )
 
-R = EARTH_RADIUS
-DATA = Path(__file__).parent / "data" / "regions"
+from tests.region_support import DATA, R, box_area, raises, write_shapefile
+
 GEOD = Geod(a=R, f=0.0)  # pyproj on the project's sphere
-
-
-def box_area(west, south, east, north):
-    """Analytic area of a lon-lat box: R² Δλ (sin φ2 − sin φ1) (CHECKS.md, derived)."""
-    return R**2 * np.radians(east - west) * (np.sin(np.radians(north)) - np.sin(np.radians(south)))
 
 
 def geod_area_lonlat(lon, lat, step=0.002):
@@ -58,15 +49,6 @@ def same_cyclic(ring, lon, lat, atol=1e-9):
         ):
             return True
     return False
-
-
-def raises(fn, *args, **kwargs) -> str:
-    with pytest.raises(RegionError) as info:
-        fn(*args, **kwargs)
-    msg = str(info.value)
-    assert msg.endswith("."), msg  # one sentence
-    assert "\n" not in msg
-    return msg
 
 
 # ---------------------------------------------------------------------------------- boxes
@@ -508,26 +490,6 @@ def test_round_trip_plain_polygon_keeps_everything():
 
 
 # ---------------------------------------------------------------------------- shapefiles
-
-
-def write_shapefile(folder: Path, stem="basins", prj=None, transform=None):
-    """Two invented basins; rings clockwise outside, counter-clockwise holes (shapefile rule)."""
-    outer = [[0, 0], [0, 10], [10, 10], [10, 0], [0, 0]]  # clockwise
-    hole = [[2, 2], [4, 2], [4, 4], [2, 4], [2, 2]]  # counter-clockwise
-    second = [[20, 0], [20, 5], [25, 5], [25, 0], [20, 0]]
-    if transform is not None:
-        outer, hole, second = ([list(transform(x, y)) for x, y in ring] for ring in (outer, hole, second))
-    w = shapefile.Writer(str(folder / stem), shapeType=shapefile.POLYGON)
-    w.field("name", "C")
-    w.field("code", "N")
-    w.poly([outer, hole])
-    w.record("Upper Vale", 1)
-    w.poly([second])
-    w.record("Coastal Fen", 2)
-    w.close()
-    if prj is not None:
-        (folder / f"{stem}.prj").write_text(prj)
-    return folder / f"{stem}.shp"
 
 
 def test_shapefile_read_and_normalised(tmp_path):

@@ -2,7 +2,7 @@
 Ctrl-C safety and resume.
 
 Reference for the numbers: the divergence theorem on the sphere with the analytic fields of
-tests/analytic.py (Q = ∇χ + k×∇ψ, χ a sum of spherical harmonics, ∇²Y_l^m = −l(l+1)Y_l^m/a²;
+budget/testing.py (Q = ∇χ + k×∇ψ, χ a sum of spherical harmonics, ∇²Y_l^m = −l(l+1)Y_l^m/a²;
 CHECKS.md), so the net import of a polygon is −g(t)·∬∇²χ dA whatever the rotational part does.
 The cluster is a dask.distributed LocalCluster on the loopback address only. No timed
 assertions: memory is judged as a ratio, speed lives in benchmarks/.
@@ -19,13 +19,15 @@ import pytest
 import shapely
 import xarray as xr
 
+from budget import blocks as block_reader
 from budget import ledger
 from budget.errors import RequestError
 from budget.fields import open_fields
 from budget.ledger import compute
 from budget.region import region_from_vertices
+from budget.stencil import Grid, compile_stencil
 from budget.stream import Interrupted, run_blocks
-from tests import analytic
+from budget import testing as analytic
 
 # An invented polygon of our own (counter-clockwise), well inside the regional grid below.
 POLY = ([2.0, 14.0, 21.0, 17.5, 9.0, 4.5], [41.0, 38.5, 46.0, 52.0, 49.0, 53.5])
@@ -80,7 +82,7 @@ def col40(tmp_path_factory):
 @pytest.fixture
 def small_blocks(monkeypatch):
     """Blocks of 5 steps, so a short record still runs as many blocks."""
-    monkeypatch.setattr(ledger, "MAX_BLOCK_STEPS", 5)
+    monkeypatch.setattr(block_reader, "MAX_BLOCK_STEPS", 5)
 
 
 @pytest.fixture(scope="module")
@@ -166,7 +168,7 @@ def _peak_bytes(path, nt):
 
 def test_memory_stays_flat_when_the_record_grows_tenfold(tmp_path, monkeypatch):
     # blocks of 10 steps of a 0.25° regional grid: each block holds ~0.5 MB of cells
-    monkeypatch.setattr(ledger, "MAX_BLOCK_STEPS", 10)
+    monkeypatch.setattr(block_reader, "MAX_BLOCK_STEPS", 10)
     path = write_column_file(tmp_path / "long.nc", 200, res=0.25, time_chunk=10)
     short, long = _peak_bytes(path, 20), _peak_bytes(path, 200)
     # issue 5: a 10x longer record must not need more than ~1.2x the peak memory
@@ -201,7 +203,7 @@ def test_gather_asks_storage_for_slabs_not_whole_chunks():
     got = compute(open_fields(ds), region, scheduler="sync")
     ref = compute(open_fields(src), region, scheduler="sync")
     _same(got, ref)
-    st = ledger.compile_stencil(region, ledger.Grid.from_fields(open_fields(src)))
+    st = compile_stencil(region, Grid.from_fields(open_fields(src)))
     slab = 4 * (np.ptp(st.rows) + 1) * (np.ptp(st.cols) + 1)  # values of the touched box
     chunk = 4 * 720 * 1440
     for name, r in rec.items():
@@ -353,7 +355,7 @@ def test_descending_latitude_file_with_a_window_asks_storage_for_the_box_only(tm
     fields = open_fields(path, start=str(t[2]), end=str(t[9]))
     reads = storage_reads()
     got = compute(fields, region, scheduler="sync")
-    st = ledger.compile_stencil(region, ledger.Grid.from_fields(fields))
+    st = compile_stencil(region, Grid.from_fields(fields))
     box = 8 * (np.ptp(st.rows) + 1) * (np.ptp(st.cols) + 1)  # 8 steps in the window
     chunk = 12 * d.sizes["lat"] * d.sizes["lon"]
     assert box < chunk / 10

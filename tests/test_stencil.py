@@ -6,7 +6,7 @@ import pytest
 from budget.errors import RegionError
 from budget.region import region_from_bbox, region_from_vertices
 from budget.stencil import Grid, compile_stencil, cover_weights, divergence_operator
-from tests import analytic
+from budget import testing as analytic
 
 R = analytic.A
 

@@ -1,4 +1,7 @@
-"""Analytic vapour-flux fields on the sphere with closed-form divergence, for tests.
+"""Analytic vapour-flux fields on the sphere with closed-form divergence, for tests and benchmarks.
+
+Importable as ``budget.testing`` so that the test suite and benchmarks/ share one generator.
+The fields are invented test data, not weather.
 
 Q = ∇χ + k × ∇ψ (CHECKS.md, "analytic test fields").  χ is a sum of spherical harmonics, so
 ∇·Q = ∇²χ = −l(l+1) χ_l / a² (CHECKS.md; any text on spherical harmonics), and the rotational
@@ -102,3 +105,42 @@ def column_dataset(res, lon0=-180.0, lon1=180.0, lat0=-90.0, lat1=90.0, periodic
     if descending:
         ds = ds.isel(lat=slice(None, None, -1))
     return ds
+
+
+# --------------------------------------------------------------------------------------
+# a small level dataset of invented, plausible values (for tests of reading and checking)
+
+#: Pressure levels of the small level dataset, Pa, top first.
+LEVELS_PA = np.array([20000.0, 30000.0, 50000.0, 70000.0, 85000.0, 92500.0, 100000.0])
+
+
+def level_dataset(nt=12, lon=None, lat=None, p=LEVELS_PA, ps=100000.0, u=10.0, v=2.0, q_surface=0.012):
+    """A CF level Dataset (u, v, q on time × plev × lat × lon; ps) of uniform invented values.
+
+    Winds are uniform (``u``, ``v`` m s-1), humidity decays upward as q_surface·(p/ps)³
+    (kg kg-1), the surface pressure is ``ps`` Pa everywhere; hourly steps from 2031-06-01.
+    Uniform winds carry no net import through any closed boundary on a lon-lat grid
+    only approximately, so use it for checks of reading, units and plausibility, not budgets.
+    """
+    lon = np.arange(0.0, 20.5, 1.0) if lon is None else np.asarray(lon, float)
+    lat = np.arange(30.0, 50.5, 1.0) if lat is None else np.asarray(lat, float)
+    times = np.datetime64("2031-06-01T00:00", "ns") + np.arange(nt) * np.timedelta64(1, "h")
+    shape4 = (nt, p.size, lat.size, lon.size)
+    q = np.broadcast_to((q_surface * (p / ps) ** 3)[None, :, None, None], shape4)
+    d4 = ("time", "plev", "lat", "lon")
+    return xr.Dataset(
+        {
+            "u": (d4, np.full(shape4, float(u)), {"units": "m s-1", "standard_name": "eastward_wind"}),
+            "v": (d4, np.full(shape4, float(v)), {"units": "m s-1", "standard_name": "northward_wind"}),
+            "q": (d4, np.array(q), {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+            "ps": (("time", "lat", "lon"), np.full((nt, lat.size, lon.size), float(ps)),
+                   {"units": "Pa", "standard_name": "surface_air_pressure"}),
+        },
+        coords={
+            "time": ("time", times),
+            "plev": ("plev", p, {"units": "Pa", "standard_name": "air_pressure"}),
+            "lat": ("lat", lat, {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": ("lon", lon, {"units": "degrees_east", "standard_name": "longitude"}),
+        },
+        attrs={"title": "invented test fields (not real weather)"},
+    )

@@ -1,0 +1,197 @@
+"""Plausibility checks on every value a budget uses, block by block.
+
+The touched cells of every time step are read anyway (budget.blocks), so checking all of them
+costs almost nothing and catches what a look at the first step cannot: humidity in g/kg
+labelled kg/kg from the second file on, surface pressure in hPa labelled Pa, an unmarked fill
+value in one cell at one time.
+
+Limits (SI, after unit conversion).  They are common practice with no single source:
+
+* specific humidity between −1e-4 and 0.04 kg/kg (the moistest tropical air holds about
+  0.025); values between −1e-4 and 0 are accepted and counted (real reanalyses have small
+  negative humidities from their numerics), anything lower is refused;
+* surface pressure between 300 and 1100 hPa;
+* horizontal wind speed below 150 m/s;
+* any value with |x| > 1e15 is an unmarked fill value (NetCDF's default fill for floats is
+  9.969e36, older files use 9.999e20 or 1e20).
+
+A refusal is one FieldsError sentence naming the variable, the file, the time and the cell
+(lon/lat), with the fix.  Only values that count are checked: level values below the ground
+(zero layer thickness) are never used and never checked.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import FieldsError
+
+#: |x| above this is an unmarked fill value (common practice, no source).
+FILL_ABOVE = 1e15
+#: Specific humidity, kg kg-1: refused below the first, counted between it and 0, refused
+#: above the second (common practice, no source).
+HUMIDITY_RANGE = (-1e-4, 0.04)
+#: Surface pressure, Pa (300-1100 hPa; common practice, no source).
+SURFACE_PRESSURE_RANGE = (30000.0, 110000.0)
+#: Horizontal wind speed, m s-1 (common practice, no source).
+MAX_WIND_SPEED = 150.0
+
+#: What the humidity or pressure most likely is when it is out of range, and the fix.
+_FIX = {
+    ("q", "high"): "it looks like g/kg labelled kg/kg; give its unit, e.g. --units q=g/kg",
+    ("q", "low"): "humidity cannot be that negative; check the variable and its sign",
+    ("ps", "low"): "it looks like hPa labelled Pa; give its unit, e.g. --units ps=hPa",
+    ("ps", "high"): "it looks like a pressure in a smaller unit labelled Pa (e.g. dPa); give its unit with --units ps=UNIT",
+    ("wind", "high"): "check the wind's unit and give it with --units (e.g. --units u=km/h)",
+}
+
+
+@dataclass
+class Where:
+    """Where a block's values come from: to name the time, cell and file in a refusal."""
+
+    fields: object  # budget.fields.Fields
+    stencil: object  # budget.stencil.Stencil
+    t0: int  # index of the block's first step in fields.ds
+
+    def when(self, step: int) -> str:
+        t = self.fields.ds["time"].values[self.t0 + int(step)]
+        return np.datetime_as_string(t, unit="m") + " UTC"
+
+    def cell(self, index: int) -> str:
+        st = self.stencil
+        j, i = divmod(int(st.touched[int(index)]), st.grid.shape[1])
+        return f"({st.grid.lon[i]:g}°E, {st.grid.lat[j]:g}°N)"
+
+    def source(self, name: str) -> str:
+        roles = {**dict(getattr(self.fields, "roles", {})), **dict(getattr(self.fields, "extra_roles", {}))}
+        return str(roles.get(name, name))
+
+    def file(self, step: int) -> str:
+        """The input file that holds the step (looked up only when a refusal needs it)."""
+        files = [str(f) for f in getattr(self.fields, "files", [])]
+        if len(files) <= 1:
+            return repr(files[0]) if files else "the input"
+        t = self.fields.ds["time"].values[self.t0 + int(step)]
+        for f in files:
+            if _holds_time(f, t):
+                return repr(f)
+        return f"one of {len(files)} files ({files[0]!r} ...)"
+
+
+def _holds_time(path: str, t) -> bool:
+    import xarray as xr
+
+    try:
+        with xr.open_dataset(path) as ds:
+            return "time" in ds.coords and bool(np.any(ds["time"].values == t))
+    except Exception:  # noqa: BLE001 - any file that cannot tell is not the one
+        return False
+
+
+@dataclass
+class Checker:
+    """Checks the arrays of one block; counts accepted small negative humidities."""
+
+    where: Where
+    counts: dict = field(default_factory=dict)  # variable -> values flagged and accepted
+
+    def finite(self, name: str, arr: np.ndarray, mask=None) -> None:
+        """Missing (NaN) values where they count: refused, naming the cell and time."""
+        bad = ~np.isfinite(arr) if mask is None else (~np.isfinite(arr) & mask)
+        if bad.any():
+            step, cell = _first(bad)
+            w = self.where
+            raise FieldsError(
+                f"Variable {w.source(name)!r} is missing at {w.cell(cell)} on {w.when(step)}, a cell this "
+                "region needs; fill the gap in the files or draw the region away from it."
+            )
+
+    def fill(self, name: str, arr: np.ndarray, mask=None) -> None:
+        """|x| > 1e15: an unmarked fill value."""
+        with np.errstate(invalid="ignore"):
+            bad = np.abs(arr) > FILL_ABOVE
+        if mask is not None:
+            bad &= mask
+        if bad.any():
+            step, cell = _first(bad)
+            w = self.where
+            value = arr[np.unravel_index(np.flatnonzero(bad.ravel())[0], bad.shape)]
+            raise FieldsError(
+                f"Variable {w.source(name)!r} in {w.file(step)} holds {value:.4g} at {w.cell(cell)} on "
+                f"{w.when(step)}, an unmarked fill value; mark it with a _FillValue or missing_value "
+                "attribute in the file, or draw the region away from it."
+            )
+
+    def within(self, name: str, arr: np.ndarray, low: float, high: float, key: str, unit: str, mask=None) -> None:
+        """Values outside low..high are refused with the most likely cause and its fix."""
+        with np.errstate(invalid="ignore"):
+            for side, bad in (("high", arr > high), ("low", arr < low)):
+                if mask is not None:
+                    bad = bad & mask
+                if bad.any():
+                    step, cell = _first(bad)
+                    value = arr[np.unravel_index(np.flatnonzero(bad.ravel())[0], bad.shape)]
+                    w = self.where
+                    limit = f"above {high:g}" if side == "high" else f"below {low:g}"
+                    raise FieldsError(
+                        f"Variable {w.source(name)!r} in {w.file(step)} is {value:.4g} {unit} at {w.cell(cell)} on "
+                        f"{w.when(step)}, {limit} {unit}, which is not plausible; {_FIX[(key, side)]}."
+                    )
+
+    def humidity(self, name: str, q: np.ndarray, mask=None) -> None:
+        lo, hi = HUMIDITY_RANGE
+        self.within(name, q, lo, hi, "q", "kg/kg", mask)
+        with np.errstate(invalid="ignore"):
+            neg = q < 0
+        if mask is not None:
+            neg &= mask
+        n = int(neg.sum())
+        if n:
+            self.counts[name] = self.counts.get(name, 0) + n
+
+    def wind(self, u: np.ndarray, v: np.ndarray, mask=None) -> None:
+        with np.errstate(invalid="ignore"):
+            speed = np.hypot(u, v)
+        self.within("u", speed, -np.inf, MAX_WIND_SPEED, "wind", "m/s (wind speed)", mask)
+
+
+def _first(bad: np.ndarray) -> tuple[int, int]:
+    """(step, cell) of the first flagged value of a (time, [level,] cell) array."""
+    idx = np.unravel_index(np.flatnonzero(bad.ravel())[0], bad.shape)
+    return int(idx[0]), int(idx[-1])
+
+
+def check_surface_pressure(chk: Checker, ps) -> None:
+    """Surface pressure, every touched cell (it decides which layers count)."""
+    chk.finite("ps", ps)
+    chk.fill("ps", ps)
+    lo, hi = SURFACE_PRESSURE_RANGE
+    chk.within("ps", ps, lo, hi, "ps", "Pa")
+
+
+def check_levels(chk: Checker, u, v, q, air) -> None:
+    """Winds and humidity where they count (layers above the ground)."""
+    for name, arr in (("u", u), ("v", v), ("q", q)):
+        chk.finite(name, arr, air)
+        chk.fill(name, arr, air)
+    chk.humidity("q", q, air)
+    chk.wind(u, v, air)
+
+
+def check_columns(chk: Checker, arrays: dict) -> None:
+    """Every value of a column block: present and not a fill value."""
+    for name, arr in arrays.items():
+        chk.finite(name, arr)
+        chk.fill(name, arr)
+
+
+def flagged_warning(counts: dict, source: dict) -> list[str]:
+    """The warning lines for values accepted but counted (small negative humidities)."""
+    return [
+        f"{n} values of {source.get(name, name)!r} over the region were slightly negative (between "
+        f"{HUMIDITY_RANGE[0]:g} and 0 kg/kg, common in reanalyses) and were used as they are."
+        for name, n in sorted(counts.items()) if n
+    ]
