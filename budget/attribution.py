@@ -52,45 +52,54 @@ def boundary_sums(st, qu: np.ndarray, qv: np.ndarray, ar_threshold: float) -> di
     }
 
 
-def layer_sums(st, vertical, layers: LayerSet, q, u, v, dp, ps) -> dict:
-    """Import of each layer per edge, (time, layer, edge) in kg s-1, from level arrays
-    (time, level, cell), layer thickness dp (time, level, cell) and ps (time, cell)."""
+def layer_sums(st, vertical, layers: LayerSet, qu_lev, qv_lev, dp, ps) -> dict:
+    """Import of each layer per edge, (time, layer, edge) in kg s-1, from the per-level
+    fluxes q·u and q·v (time, level, cell), the thickness dp (time, level, cell) and ps
+    (time, cell)."""
     dp_l = np.moveaxis(dp, 1, 0)  # (level, time, cell)
     frac = layer_fractions(dp_l, column_top(vertical, ps), ps, layers)  # (layer, level, time, cell)
     frac = np.moveaxis(frac, 1, 2)  # (layer, time, level, cell)
-    qu_l = layer_integrals(q * u, frac, level_axis=1)  # (layer, time, cell)
-    qv_l = layer_integrals(q * v, frac, level_axis=1)
+    qu_l = layer_integrals(qu_lev, frac, level_axis=1)  # (layer, time, cell)
+    qv_l = layer_integrals(qv_lev, frac, level_axis=1)
     nl, nt, nc = qu_l.shape
     flux = st.bu @ qu_l.reshape(-1, nc).T + st.bv @ qv_l.reshape(-1, nc).T  # (piece, layer*time)
     edge = -(st.edge_sum @ flux)  # (edge, layer*time)
     return {"layer_edge": edge.T.reshape(nl, nt, -1).transpose(1, 0, 2)}
 
 
-def variables(sums: dict, st, options: AttributionOptions, edge_names) -> dict:
-    """Dataset variables (SI) from the concatenated block sums."""
-    T = ("time",)
-    out = {}
-    if "ivt_bnd" in sums:
-        thr = float(options.ar_threshold)
-        out["boundary_mean_ivt"] = xr.Variable(T, sums["ivt_bnd"], {
-            "units": "kg m-1 s-1", "long_name": "mean integrated vapour transport along the boundary",
-            "method_detail": "|Q| interpolated to the boundary pieces, length-weighted; files' winds"})
-        out["ar_inflow"] = xr.Variable(T, sums["ar_in"], {
-            "units": "kg s-1", "long_name": "water-vapour inflow where IVT meets the atmospheric-river threshold",
-            "ar_ivt_threshold_kg_m-1_s-1": thr,
-            "method_detail": f"inflow through boundary pieces with IVT >= {thr:g} kg m-1 s-1 (Rutz, Steenburgh and Ralph 2014); files' winds"})
-        out["ar_edge_inflow"] = xr.Variable(("time", "edge"), sums["ar_edge"], {
-            "units": "kg s-1", "long_name": "atmospheric-river inflow through each edge", "ar_ivt_threshold_kg_m-1_s-1": thr})
-    if "layer_edge" in sums and options.layers is not None:
-        le = sums["layer_edge"]
-        note = "layer slices of the column scheme (budget.layers); files' winds, no mass correction"
-        out["layer_edge_import"] = xr.Variable(("time", "layer", "edge"), le, {
-            "units": "kg s-1", "long_name": "water-vapour import through each edge by layer", "method_detail": note})
-        out["layer_import"] = xr.Variable(("time", "layer"), le.sum(axis=2), {
-            "units": "kg s-1", "long_name": "net water-vapour import by layer", "method_detail": note})
-        out["layer_convergence"] = xr.Variable(("time", "layer"), le.sum(axis=2) / st.area, {
-            "units": "kg m-2 s-1", "long_name": "area-mean vapour-flux convergence by layer", "method_detail": "boundary method; " + note})
+def block_sums(st, vertical, options: AttributionOptions, qu, qv, levels: dict | None) -> dict:
+    """Every attribution sum of one block: boundary IVT and AR inflow from the column fluxes
+    (time, cell); layer imports when layers are asked for and ``levels`` holds the per-level
+    fluxes ``qu``, ``qv``, the thickness ``dp`` and ``ps``."""
+    out = boundary_sums(st, qu, qv, options.ar_threshold)
+    if options.layers is not None and levels is not None:
+        out.update(layer_sums(st, vertical, options.layers, levels["qu"], levels["qv"], levels["dp"], levels["ps"]))
     return out
+
+
+def variables(sums, st, options: AttributionOptions) -> tuple[dict, dict]:
+    """Dataset variables (SI, attributes from the term catalogue budget.terms) and coordinates
+    from the concatenated block sums (budget.blocks.BlockSums: ivt_bnd, ar_in, ar_edge,
+    layer_edge)."""
+    from . import terms
+
+    out, coords = {}, {}
+    thr = float(options.ar_threshold)
+    if sums.ivt_bnd is not None:
+        ar = f"inflow through boundary pieces with IVT >= {thr:g} kg m-1 s-1 (Rutz, Steenburgh and Ralph 2014); files' winds"
+        out["boundary_mean_ivt"] = xr.Variable(("time",), sums.ivt_bnd, terms.attrs("boundary_mean_ivt"))
+        out["ar_inflow"] = xr.Variable(("time",), sums.ar_in, {**terms.attrs("ar_inflow", ar), "ar_ivt_threshold": f"{thr:g} kg m-1 s-1"})
+        out["ar_edge_inflow"] = xr.Variable(("time", "edge"), sums.ar_edge, {**terms.attrs("ar_edge_inflow", ar), "ar_ivt_threshold": f"{thr:g} kg m-1 s-1"})
+    if sums.layer_edge is not None and options.layers is not None:
+        lay = options.layers
+        coords["layer"] = ("layer", lay.names(), {
+            "long_name": "layer of the air column, surface first",
+            "layer_bounds": ",".join(f"{b:g}" for b in lay.bounds) + (" hPa" if lay.kind == "pressure" else " sigma")})
+        le = sums.layer_edge
+        out["layer_edge_import"] = xr.Variable(("time", "layer", "edge"), le, terms.attrs("layer_edge_import"))
+        out["layer_import"] = xr.Variable(("time", "layer"), le.sum(axis=2), terms.attrs("layer_import"))
+        out["layer_convergence"] = xr.Variable(("time", "layer"), le.sum(axis=2) / st.area, terms.attrs("layer_convergence"))
+    return out, coords
 
 
 def ar_share(ds: xr.Dataset, weights=None) -> float:

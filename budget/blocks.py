@@ -155,7 +155,7 @@ class Gatherer:
 
 # -- block sums ------------------------------------------------------------------------------
 #: Version of the BlockSums layout; a resume folder of another version is refused.
-BLOCK_FORMAT = 2
+BLOCK_FORMAT = 3
 
 _VERSION_KEY = "fluxfence_block_format"
 
@@ -192,6 +192,11 @@ class BlockSums:
     density: np.ndarray | None = None  # import per unit length, kg m-1 s-1 (time, piece)
     curtain: np.ndarray | None = None  # kg m-1 s-1 Pa-1 (time, level, piece)
     curtain_dp: np.ndarray | None = None  # Pa (time, level, piece)
+    # where the water comes in (budget.attribution)
+    ivt_bnd: np.ndarray | None = None  # length-weighted mean IVT along the boundary, kg m-1 s-1
+    ar_in: np.ndarray | None = None  # inflow where IVT meets the AR threshold, kg s-1
+    ar_edge: np.ndarray | None = None  # the same per edge (time, edge)
+    layer_edge: np.ndarray | None = None  # import per layer and edge, kg s-1 (time, layer, edge)
     # values accepted but flagged (budget.plausible), per input variable
     flagged: dict = field(default_factory=dict)
 

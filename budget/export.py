@@ -27,7 +27,13 @@ def to_frame(ds: xr.Dataset) -> pd.DataFrame:
     area = float(ds.attrs["region_area_m2"])
     cols = {"time": [np.datetime_as_string(t, unit="s") + "Z" for t in ds["time"].values]}
     for col, term in terms.csv_columns():
-        if term.name in ds:
+        if term.name not in ds:
+            continue
+        if "layer" in term.dims:  # one column per layer, e.g. layer_1000_850hPa_import_kg_s
+            for lay in ds["layer"].values:
+                values = ds[term.name].sel(layer=lay).values
+                cols[col.name.format(layer=lay)] = terms.to_display(term, values, col.unit, area)
+        else:
             cols[col.name] = terms.to_display(term, ds[term.name].values, col.unit, area)
     return pd.DataFrame(cols)
 

@@ -20,7 +20,7 @@ from functools import partial
 import numpy as np
 import xarray as xr
 
-from . import __version__, closure, plausible, terms
+from . import __version__, attribution, closure, plausible, terms
 from .blocks import BlockSums, Cells, Gatherer, Shifted, block_steps
 from .constants import STANDARD_GRAVITY
 from .errors import RequestError
@@ -76,7 +76,7 @@ class Columns:
     flagged: dict | None = None  # values accepted but counted (budget.plausible)
 
 
-def _columns(fields, st: Stencil, ds, tslice, profiles: bool) -> Columns:
+def _columns(fields, st: Stencil, ds, tslice, profiles: bool, keep_levels: bool = False) -> Columns:
     """Read one block's touched cells, check every value (budget.plausible), integrate."""
     from .vertical import column_integral
 
@@ -93,14 +93,15 @@ def _columns(fields, st: Stencil, ds, tslice, profiles: bool) -> Columns:
     qu = column_integral(q * u, dp, level_axis=1)
     qv = column_integral(q * v, dp, level_axis=1)
     w = column_integral(q, dp, level_axis=1)
-    levels = {"qu": q * u, "qv": q * v, "dp": dp} if profiles else None
+    levels = {"qu": q * u, "qv": q * v, "dp": dp, "ps": ps} if (profiles or keep_levels) else None
     extra = closure.level_extras(ds, g, q, u, v, dp, qu, qv, w, chk)
     return Columns(qu, qv, w, ps=ps, levels=levels, extra=extra, flagged=chk.counts)
 
 
-def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> BlockSums:
+def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False,
+           attribute: attribution.AttributionOptions = attribution.AttributionOptions()) -> BlockSums:
     """Every per-time-step sum of one block of time steps."""
-    c = _columns(fields, st, ds, tslice, profiles)
+    c = _columns(fields, st, ds, tslice, profiles, keep_levels=attribute.layers is not None)
     flux = (st.bu @ c.qu.T + st.bv @ c.qv.T).T  # outward flux per piece, (time, piece)
     sums = dict(
         imp=-flux.sum(axis=1),
@@ -111,6 +112,7 @@ def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False) -> Bl
         w=c.w @ st.cover / st.area,
     )
     sums.update(closure.block_sums(st, c.extra, c.w))
+    sums.update(attribution.block_sums(st, fields.vertical, attribute, c.qu, c.qv, c.levels))
     if profiles:
         sums["density"] = -flux / st.piece_length
         if c.levels is not None:
@@ -200,6 +202,9 @@ def compute(
     if options.method not in METHODS:
         raise RequestError(f"Unknown method {options.method!r}; choose 'boundary' or 'area'.")
     fields = as_fields(fields)
+    if options.attribution.layers is not None and fields.kind != "levels":
+        raise RequestError("Import by layer needs winds and humidity on levels (u, v, q, ps); these fields are "
+                           "pre-integrated columns, so leave out --layers or give level fields.")
     st = run.stencil if run.stencil is not None else compile_stencil(region, Grid.from_fields(fields))
     ds = time_window(fields.ds, options.start, options.end)
     times = ds["time"].values
@@ -207,7 +212,7 @@ def compute(
     chunk = run.block_steps or block_steps(fields.kind, st, ds, nt)
     # Blocks read the un-windowed fields at shifted steps (budget.blocks.Shifted), and error
     # messages name the true time of a step.
-    func = partial(_block, fields, st, fields.ds, profiles=options.profiles)
+    func = partial(_block, fields, st, fields.ds, profiles=options.profiles, attribute=options.attribution)
     key = _job_key(func, st, ds, region, chunk) if run.resume is not None else ""
     parts = run_blocks(Shifted(func, window_offset(fields.ds["time"].values, times)), nt, chunk,
                        progress=run.progress, scheduler=run.scheduler, store=run.resume, key=key,
@@ -277,6 +282,9 @@ def _assemble(fields, region, st, times, sums: BlockSums, closed, options: Budge
         "edge_length": ("edge", st.edge_sum @ bnd.lengths(), {"units": "m", "long_name": "length of each edge"}),
     }
     _profile_variables(sums, st, ds, dv, coords)
+    avars, acoords = attribution.variables(sums, st, options.attribution)
+    dv.update(avars)
+    coords.update(acoords)
     out = xr.Dataset(dv, coords=coords)
     out["time"].attrs.update({"long_name": "time", "standard_name": "time"})
     geo = region.to_geojson() if hasattr(region, "to_geojson") else None

@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Callable
 
+from .attribution import AttributionOptions
 from .errors import RequestError
 
 METHODS = ("boundary", "area")
@@ -56,7 +57,8 @@ class BudgetOptions:
     method: the primary convergence estimate, "boundary" line integral or "area" integral of
     the gridded divergence (both are always reported).  start, end: the time window (ISO 8601,
     inclusive).  profiles: add the import per unit boundary length and, for level inputs, the
-    normal-flux curtain.
+    normal-flux curtain.  attribution: layers of the column and the atmospheric-river IVT
+    threshold (budget.attribution).
     """
 
     method: str = "boundary"
@@ -64,6 +66,7 @@ class BudgetOptions:
     end: object = None
     profiles: bool = False
     closure: ClosureOptions = field(default_factory=ClosureOptions)
+    attribution: AttributionOptions = field(default_factory=AttributionOptions)
 
     def __post_init__(self):
         if self.method not in METHODS:

@@ -23,7 +23,7 @@ from .errors import RequestError
 from .units import RATE_UNITS, convert, kg_m2_to_mm, transport_to_rate
 
 #: Families of terms (what a screen groups or switches between).
-FAMILIES = ("vapour", "dry_air", "correction", "total_water", "observed", "edge", "profile")
+FAMILIES = ("vapour", "dry_air", "correction", "total_water", "observed", "edge", "profile", "attribution")
 
 #: Display units: the key used in code, and the label shown in tables and axis titles.
 UNIT_LABELS = {
@@ -88,6 +88,7 @@ _MASS = "kg m-2"
 _TRANSPORT = "kg s-1"
 _BOUNDARY = "outward flux through the densified boundary, Q bilinearly interpolated to piece midpoints"
 _CENTRED = "centred differences in time, one-sided at the ends"
+_LAYERS = "layer slices of the column scheme (budget.layers); files' winds, no mass correction"
 
 
 def _c(name: str, unit: str, summary: bool = False) -> Column:
@@ -180,6 +181,22 @@ TERMS: tuple[Term, ...] = (
     Term("p_minus_e_total_water_uncorrected", _RATE,
          "P - E from the total-water budget, files' winds (no mass correction)", "total_water",
          "P − E, total water, without the mass correction"),
+    # where the water comes in (budget.attribution): boundary IVT, atmospheric rivers, layers
+    Term("boundary_mean_ivt", "kg m-1 s-1", "mean integrated vapour transport along the boundary", "attribution",
+         "Mean IVT along the boundary", "boundary IVT",
+         method="|Q| interpolated to the boundary pieces, length-weighted; files' winds",
+         columns=(_c("boundary_mean_ivt_kg_m_s", "kg m-1 s-1"),)),
+    Term("ar_inflow", _TRANSPORT, "water-vapour inflow where IVT meets the atmospheric-river threshold", "attribution",
+         "Atmospheric-river inflow", "AR inflow", columns=(_c("ar_inflow_kg_s", "kg/s", True),)),
+    Term("ar_edge_inflow", _TRANSPORT, "atmospheric-river inflow through each edge", "attribution",
+         "Atmospheric-river inflow through the edge", dims=("time", "edge")),
+    Term("layer_import", _TRANSPORT, "net water-vapour import by layer", "attribution", "Import by layer",
+         method=_LAYERS, columns=(_c("layer_{layer}_import_kg_s", "kg/s"),), dims=("time", "layer")),
+    Term("layer_convergence", _RATE, "area-mean vapour-flux convergence by layer", "attribution",
+         "Convergence by layer", method="boundary method; " + _LAYERS,
+         columns=(_c("layer_{layer}_convergence_mm_day", "mm/day"),), dims=("time", "layer")),
+    Term("layer_edge_import", _TRANSPORT, "water-vapour import through each edge by layer", "attribution",
+         "Import by layer and edge", method=_LAYERS, dims=("time", "layer", "edge")),
     # along the boundary (budget.ledger; profiles=True for the last three)
     Term("edge_import", _TRANSPORT, "water-vapour import through each edge", "edge", "Import through the edge",
          dims=("time", "edge")),

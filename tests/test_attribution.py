@@ -65,7 +65,7 @@ def test_layer_imports_sum_to_the_column_import():
     u = rng.normal(5, 10, (nt, nl, nc))
     v = rng.normal(0, 10, (nt, nl, nc))
     dp = np.moveaxis(vert.thickness(ps), 0, 1)  # (time, level, cell)
-    out = layer_sums(st, vert, parse_layers("1000,850,500,300"), q, u, v, dp, ps)["layer_edge"]
+    out = layer_sums(st, vert, parse_layers("1000,850,500,300"), q * u, q * v, dp, ps)["layer_edge"]
     qu = column_integral(q * u, dp, level_axis=1)
     qv = column_integral(q * v, dp, level_axis=1)
     column = -(st.bu @ qu.T + st.bv @ qv.T).sum(axis=0)
@@ -76,3 +76,38 @@ def test_layer_imports_sum_to_the_column_import():
 def test_options_default_threshold_is_the_published_one():
     # Rutz, Steenburgh and Ralph 2014: IVT >= 250 kg m-1 s-1
     assert AttributionOptions().ar_threshold == 250.0
+
+
+# -- through the whole budget, on the invented sample event ---------------------------------
+
+@pytest.fixture(scope="module")
+def sample_budget(tmp_path_factory):
+    from budget.attribution import AttributionOptions as AO
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.options import BudgetOptions, ClosureOptions
+    from budget.region import load_region
+    from sample_fields import ensure_sample
+
+    paths = ensure_sample(tmp_path_factory.mktemp("attr"))
+    opts = BudgetOptions(closure=ClosureOptions(mass_correction="off"),
+                         attribution=AO(layers=parse_layers("1000,850,700,500,300")))
+    return compute(open_fields([str(paths.levels)]), load_region(path=str(paths.basin)), options=opts)
+
+
+def test_sample_layers_sum_to_the_column_and_reach_the_csv(sample_budget):
+    from budget.export import to_frame
+
+    ds = sample_budget
+    # the layers tile the column: their imports add up to the budget's import (correction off)
+    np.testing.assert_allclose(ds["layer_import"].sum("layer").values, ds["vapour_import"].values, rtol=1e-9)
+    np.testing.assert_allclose(ds["layer_edge_import"].sum("layer").values, ds["edge_import"].values, rtol=1e-9,
+                               atol=1e-9 * float(np.abs(ds["edge_import"]).max()))
+    np.testing.assert_allclose(ds["layer_convergence"].sum("layer").values, ds["boundary_convergence"].values, rtol=1e-9)
+    df = to_frame(ds)
+    assert "layer_1000_850hPa_import_kg_s" in df.columns
+    assert "layer_850_700hPa_convergence_mm_day" in df.columns
+    # AR inflow never exceeds the inflow; the boundary IVT is positive
+    assert (ds["ar_inflow"].values <= ds["inflow"].values * (1 + 1e-12)).all()
+    assert (ds["boundary_mean_ivt"].values > 0).all()
+    assert "ar_inflow_kg_s" in df.columns and "boundary_mean_ivt_kg_m_s" in df.columns

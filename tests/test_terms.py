@@ -25,11 +25,11 @@ CF_CANONICAL = {
 
 # How each display unit ends a CSV column name (a project convention, common practice: no source).
 SUFFIX = {"mm": "_mm", "mm/day": "_mm_day", "kg/s": "_kg_s", "m3/s": "_m3_s", "m/s": "_m_s",
-          "kg m-2": "_kg_m2", "kg m-2 s-1": "_kg_m2_s", "hPa/day": "_hpa_day"}
+          "kg m-2": "_kg_m2", "kg m-2 s-1": "_kg_m2_s", "hPa/day": "_hpa_day", "kg m-1 s-1": "_kg_m_s"}
 
 # Display unit keys in pint spelling (MetPy's registry).
 PINT = {"mm/day": "mm/day", "kg/s": "kg/s", "m3/s": "m**3/s", "m/s": "m/s", "kg m-2": "kg m-2",
-        "kg m-2 s-1": "kg m-2 s-1", "hPa/day": "hPa/day"}
+        "kg m-2 s-1": "kg m-2 s-1", "hPa/day": "hPa/day", "kg m-1 s-1": "kg m-1 s-1"}
 
 
 def test_names_columns_and_standard_names_are_unique():
