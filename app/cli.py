@@ -85,6 +85,11 @@ def _summary(ds) -> str:
         ("method", ds.attrs.get("method", "")),
         ("mass correction", ds.attrs.get("mass_correction", "")),
     ]
+    import json
+
+    flagged = json.loads(ds.attrs.get("flagged_values") or "{}")
+    if flagged:  # values accepted but counted (budget.plausible)
+        rows.append(("flagged values", ", ".join(f"{k}: {n}" for k, n in flagged.items())))
     lines = [f"{k:<22}{v}" for k, v in rows]
     lines.append("mean over the period")
     for col, term in terms.summary_columns():

@@ -754,15 +754,25 @@ WATER_TERMS = {
 PERIOD_TERMS = WATER_TERMS["vapour"]
 
 
+_CORRECTION_WORDS = {
+    "applied": "applied",
+    "switched_off": "off: the files' winds are used as they are",
+    "unavailable": "not available (column inputs carry no dry-air flux)",
+}
+
+
 def correction_state(budget) -> str:
-    """Whether the mass correction changed this result, read from the numbers themselves."""
+    """Whether the mass correction changed this result: the engine's status attribute (data,
+    budget.closure.CorrectionState), or else the numbers themselves."""
+    status = budget.attrs.get("mass_correction_status")
+    if status in _CORRECTION_WORDS:
+        return _CORRECTION_WORDS[status]
     if "mass_correction_convergence" not in budget:
-        return "not available (column inputs carry no dry-air flux)"
-    applied = budget.attrs.get("mass_correction_applied")
-    if applied is None:  # the corrected and uncorrected P − E differ only when it was applied
-        applied = not np.allclose(budget["p_minus_e"].values,
-                                  budget["p_minus_e_uncorrected"].values, equal_nan=True)
-    return "applied" if bool(applied) else "off: the files' winds are used as they are"
+        return _CORRECTION_WORDS["unavailable"]
+    # the corrected and uncorrected P − E differ only when it was applied
+    applied = not np.allclose(budget["p_minus_e"].values,
+                              budget["p_minus_e_uncorrected"].values, equal_nan=True)
+    return _CORRECTION_WORDS["applied" if applied else "switched_off"]
 
 
 def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None = None,
@@ -805,7 +815,9 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
 def _correction_rows(budget, start, end):
     rows = []
     if "dry_air_residual_pressure" in budget:
-        r = np.asarray(budget["dry_air_residual_pressure"].values[start:end + 1], float)
+        r = np.asarray(terms.to_display("dry_air_residual_pressure",
+                                        budget["dry_air_residual_pressure"].values[start:end + 1],
+                                        "hPa/day"), float)
         rows.append(_row(terms.term("dry_air_residual_pressure").label,
                          f"{number(np.mean(r))} hPa/day",
                          "", np.mean(r)))
