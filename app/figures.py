@@ -507,10 +507,12 @@ def _view(kind: str) -> BudgetView:
 
 
 def _pressure_rate(values):
-    """kg m-2 s-1 → the equivalent surface-pressure tendency in hPa/day (budget.mass)."""
+    """kg m-2 s-1 → the equivalent surface-pressure tendency (budget.mass, Pa s-1) shown in
+    hPa/day (budget.units)."""
     from budget.mass import residual_as_pressure_tendency
+    from budget.units import pa_s_to_hpa_day
 
-    return residual_as_pressure_tendency(values)
+    return pa_s_to_hpa_day(residual_as_pressure_tendency(values))
 
 
 def _rate_in(budget, var: str, units: str, kind: str, area: float):
