@@ -169,15 +169,37 @@ def test_climatology_right_axis_is_the_volume_rate(sample_data):
     assert sample_data.from_m3_s(expected) == pytest.approx(1.0, rel=1e-12)
 
 
-def test_monthly_cycle_matches_pandas(sample_data):
-    # the annual cycle equals a plain pandas resample and groupby of the same series
+def test_monthly_cycle_of_a_short_record_matches_pandas(sample_data):
+    # five days of January: the daily means grouped by month, as a plain pandas resample gives
     import pandas as pd
 
-    cyc = report.monthly_cycle(sample_data, "p_minus_e")
+    cyc, spread = report.monthly_cycle(sample_data, "p_minus_e")
     daily = pd.Series(sample_data.budget["p_minus_e"].values * 86400.0, index=sample_data.times).resample("1D").mean()
-    assert list(cyc["month"]) == [1]
+    assert list(cyc["month"]) == [1] and "daily means" in spread
     assert cyc["mean"].iloc[0] == pytest.approx(daily.mean(), rel=1e-12)
     assert cyc["low"].iloc[0] == pytest.approx(daily.quantile(0.1), rel=1e-12)
+
+
+def test_monthly_cycle_of_years_is_the_interannual_mean_and_spread():
+    # three complete years of daily P - E = 2 + month/10 + (year - 2002) mm/day: each month's
+    # mean is 2 + month/10 and its spread between years is the sample standard deviation of
+    # (-1, 0, 1), which is 1 (ddof = 1); computed by hand, no library
+    import pandas as pd
+    import xarray as xr
+
+    from app.report import FigureData
+
+    times = pd.date_range("2001-01-01", "2003-12-31 18:00", freq="6h")
+    mm_day = 2.0 + times.month / 10.0 + (times.year - 2002)
+    ds = xr.Dataset({"p_minus_e": ("time", np.asarray(mm_day, float) / 86400.0, {"units": "kg m-2 s-1"})},
+                    coords={"time": times.values},
+                    attrs={"region_area_m2": 1.0e10, "region_name": "invented test box"})
+    cyc, spread = report.monthly_cycle(FigureData(budget=ds, region=None), "p_minus_e")
+    assert "between years" in spread
+    assert list(cyc["month"]) == list(range(1, 13))
+    assert list(cyc["years"]) == [3] * 12
+    assert np.allclose(cyc["mean"], 2.0 + np.arange(1, 13) / 10.0, rtol=1e-6)
+    assert np.allclose(cyc["high"] - cyc["mean"], 1.0, rtol=1e-6)
 
 
 def test_projection_choice():

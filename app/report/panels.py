@@ -178,12 +178,12 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     """Mean annual cycle of P − E with its spread, on mm/day and m³/s axes, with discharge."""
     gs = _grid(fig, rect, 1, right=0.8 if compact else 0.86)
     ax = fig.add_subplot(gs[0])
-    cyc = monthly_cycle(data, "p_minus_e")
+    cyc, spread = monthly_cycle(data, "p_minus_e")
     m = cyc["month"].values
     ax.axhline(0.0, color=st.MUTED, linewidth=0.6 * style.line_width)
     ax.fill_between(m, cyc["low"], cyc["high"], color=st.IMPORT, alpha=0.2, linewidth=0)
     ax.errorbar(m, cyc["mean"], yerr=[cyc["mean"] - cyc["low"], cyc["high"] - cyc["mean"]], color=st.IMPORT,
-                marker="o", markersize=3 * style.line_width, capsize=3, label="P − E (bar/band: 10–90 % of daily means)")
+                marker="o", markersize=3 * style.line_width, capsize=3, label=f"P − E (bars and band: {spread})")
     if data.discharge is not None and len(data.discharge):
         dc = discharge_cycle(data.discharge)
         ax.plot(dc["month"], data.from_m3_s(dc["mean"]), color=st.SERIES_COLOURS["discharge"], marker="s",
@@ -198,6 +198,7 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     ax.set_title(_title(data, "mean annual cycle of P − E", compact))
     ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16) if compact else None)
     if years < 10:
-        ax.text(0.99, 0.97, f"short record ({years} year(s)): only the months present are shown",
+        short = "only the months present" if years < 2 else "a short climatology"
+        ax.text(0.99, 0.97, f"{years} year(s) of complete months: {short}",
                 transform=ax.transAxes, ha="right", va="top", fontsize=style.caption_size, color=st.MUTED)
     return [ax]
