@@ -122,7 +122,8 @@ def draw_boundary(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool = F
         _edge_ticks(ax, data, style)
         ax.set_xlim(0, x.max() * 1.0 + 1e-9)
         ax.set_ylabel("import, kg m⁻¹ s⁻¹")
-        ax.set_xlabel("distance along the boundary from vertex 1, km")
+        if not (compact and has_curtain):  # the curtain below carries the same distance axis
+            ax.set_xlabel("distance along the boundary from vertex 1, km")
         ax.set_title(_title(data, "import along the boundary, period mean", compact), pad=14)
         ax.legend(loc="lower right", ncol=2)
         axes.append(ax)
@@ -197,8 +198,9 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     years = int(cyc["years"].max()) if len(cyc) else 0
     ax.set_title(_title(data, "mean annual cycle of P − E", compact))
     ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16) if compact else None)
-    if years < 10:
-        short = "only the months present" if years < 2 else "a short climatology"
-        ax.text(0.99, 0.97, f"{years} year(s) of complete months: {short}",
+    if "daily" in spread or years < 10:
+        short = ("short record: the months present, no complete month in two years" if "daily" in spread
+                 else f"{years} years of complete months: a short climatology")
+        ax.text(0.99, 0.97, short,
                 transform=ax.transAxes, ha="right", va="top", fontsize=style.caption_size, color=st.MUTED)
     return [ax]
