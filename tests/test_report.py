@@ -243,3 +243,30 @@ def test_dashboard_coastline_and_shapefile_share_one_source():
     assert geo_points == shp_points
     assert shapefile_path("50m", "borders").exists()
     assert len(shipped_lines("50m", "borders")) > len(shipped_lines("110m", "borders")) > 100
+
+
+@pytest.mark.parametrize("bbox, kind", [
+    ((170.0, 60.0, -170.0, 80.0), "north-polar"),  # across the antimeridian, near the pole
+    ((-60.0, -82.0, 40.0, -72.0), "south-polar"),
+    ((150.0, -10.0, -160.0, 12.0), "azimuthal"),  # across the antimeridian and the equator
+])
+def test_region_only_maps_in_any_frame_draw_the_outline(bbox, kind):
+    # a map with no fields still draws the region and the shipped coastlines, offline
+    import pandas as pd
+    import xarray as xr
+
+    from app.report import FigureData
+    from app.report.mapview import frame_for
+    from budget.region import region_from_bbox
+
+    region = region_from_bbox(*bbox, name="invented test box")
+    budget = xr.Dataset(coords={"time": pd.date_range("2030-01-01", periods=2, freq="6h").values},
+                        attrs={"region_area_m2": region.area_m2(), "region_name": "invented test box"})
+    data = FigureData(budget=budget, region=region, source="none", invented=True)
+    assert frame_for(data).kind == kind
+    fig = report.render("map", data, report.get_style("paper"))
+    image = report.to_bytes(fig, "png", dpi=80)
+    import io
+
+    pixels = mpimg.imread(io.BytesIO(image))
+    assert _near(pixels, _rgb(OUTLINE)).sum() > 100
