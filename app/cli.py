@@ -15,6 +15,7 @@ from pathlib import Path
 
 from app import cli_records
 from budget import __version__
+from budget.catalogue import var_help
 from budget.errors import FluxfenceError, RequestError
 
 CAUTION = (
@@ -253,7 +254,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")
-    r.add_argument("--var", action="append", metavar="ROLE=NAME", help="take variable NAME for ROLE (u, v, q, ps, qu, qv, w; optional precip, evap, ql, qi, tu, tv, wl, wi)")
+    r.add_argument("--var", action="append", metavar="ROLE=NAME", help=var_help())
     r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong")
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")
