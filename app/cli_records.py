@@ -176,7 +176,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
     plan = Outputs(inputs=[*args.fields, args.region], overwrite=args.overwrite)
     if args.each_feature:
         plan.folder(out, "--out")
-    for f in files:
+    for f in dict.fromkeys(files):  # --aggregate writes its table in --out itself
         plan.file(f, "--out")
     if args.netcdf:
         plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES)
