@@ -151,7 +151,8 @@ def _coastline():
     return _COAST["lines"]
 
 
-def _budget_key(source_id, geojson: dict, method: str, correction: str = "default") -> str:
+def _budget_key(source_id, geojson: dict, method: str, correction: str = "default",
+                attribution=None) -> str:
     src = _source(source_id)
     stamps = []
     for p in src["paths"]:
@@ -169,6 +170,7 @@ def _budget_key(source_id, geojson: dict, method: str, correction: str = "defaul
         "bbox": props.get("bbox"),
         "method": method,
         "correction": correction,
+        "attribution": attribution,  # layers and AR threshold (app/callbacks_attribution.py)
     }, sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
@@ -587,9 +589,10 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
     Input("regions", "data"),
     Input("correction", "value"),
     Input("budget-watch", "n_intervals"),
+    Input("insight-options", "data"),
     State("want", "data"),
 )
-def request_budget(selected, method, source_id, regions, correction, _tick, current):
+def request_budget(selected, method, source_id, regions, correction, _tick, attribution, current):
     cache = _results()
     if ctx.triggered_id == "budget-watch":
         # the watchdog: a job that never started or died without a word is submitted again
@@ -612,11 +615,12 @@ def request_budget(selected, method, source_id, regions, correction, _tick, curr
     if rec is None:
         return None, no_update
     try:
-        key = _budget_key(source_id, rec["geojson"], method, correction)
+        key = _budget_key(source_id, rec["geojson"], method, correction, attribution)
     except KeyError:
         return None, no_update
     want = {"key": key, "source": str(source_id), "method": method, "geojson": rec["geojson"],
-            "name": rec["name"], "correction": correction, "submitted": time.time()}
+            "name": rec["name"], "correction": correction, "submitted": time.time(),
+            "attribution": attribution}
     if key in cache:
         return want, no_update
     cache.delete(f"error:{key}")
@@ -636,8 +640,12 @@ def request_budget(selected, method, source_id, regions, correction, _tick, curr
 )
 def run_budget(set_progress, job):
     """The background job: compute the budget of a region with the engine and cache it."""
+    from budget.attribution import AR_IVT_THRESHOLD
     from budget.ledger import compute
+    from budget.options import RunOptions
     from budget.region import region_from_geojson
+
+    from .callbacks_attribution import budget_options, read_options
 
     if not job:
         raise PreventUpdate
@@ -645,8 +653,11 @@ def run_budget(set_progress, job):
         correction = job.get("correction", "default")
         if correction not in ("default", "off"):
             raise PreventUpdate
-        key = _budget_key(job["source"], job["geojson"], job["method"], correction)
-    except (KeyError, TypeError, AttributeError):
+        attribution = read_options((job.get("attribution") or {}).get("layers"),
+                                   (job.get("attribution") or {}).get("ar", AR_IVT_THRESHOLD))
+        key = _budget_key(job["source"], job["geojson"], job["method"], correction,
+                          job.get("attribution"))
+    except (KeyError, TypeError, AttributeError, FluxfenceError):
         raise PreventUpdate
     if key != job.get("key"):
         raise PreventUpdate
@@ -664,9 +675,9 @@ def run_budget(set_progress, job):
     try:
         fields = _fields(job["source"])
         region = region_from_geojson(job["geojson"], name=job.get("name"))
-        ds = compute(fields, region, method=job["method"], profiles=True,
-                     mass_correction=False if correction == "off" else None,
-                     progress=lambda done, total: set_progress((str(done), str(total))))
+        ds = compute(fields, region,
+                     options=budget_options(job["method"], correction, attribution, fields.kind),
+                     run=RunOptions(progress=lambda done, total: set_progress((str(done), str(total)))))
         ds = ds.load()
         cache.set(key, ds)
         return {"key": key, "error": None}
@@ -754,6 +765,18 @@ def _show_budget(want, done, units, time_index, period):
         blank = figures.empty_figure("No budget to show.")
         return (blank, blank, blank, None, _message(exc, "drawing the budget"), "notice error",
                 "", True)
+
+
+def finished_budget(want):
+    """The cached budget of the page's request ``want``, or None (still computing, failed)."""
+    if not want or not want.get("key"):
+        return None
+    return _results().get(want["key"])
+
+
+def opened_fields(source_id):
+    """The opened Fields of a field set this server offers (shared with the budget jobs)."""
+    return _fields(source_id)
 
 
 @callback(

@@ -125,7 +125,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
     """Build the dashboard for the given fields (the sample event when none are given)."""
     import diskcache
 
-    from . import callbacks
+    from . import callbacks, callbacks_attribution  # noqa: F401  (registers the callbacks)
     from .layout import build_layout
 
     sources = resolve_sources(paths, data_dir)
