@@ -1,4 +1,4 @@
-"""Command line: `fluxfence run | serve | sample`.
+"""Command line: `fluxfence run | serve | sample | figure` (figure: app/figure_cmd.py).
 
 Every user-facing problem ends in one sentence on stderr and a non-zero exit status; a
 traceback means a bug.
@@ -15,6 +15,7 @@ from pathlib import Path
 
 from app import cli_records
 from budget import __version__
+from budget.catalogue import var_help
 from budget.errors import FluxfenceError, RequestError
 
 CAUTION = (
@@ -84,6 +85,11 @@ def _summary(ds) -> str:
         ("method", ds.attrs.get("method", "")),
         ("mass correction", ds.attrs.get("mass_correction", "")),
     ]
+    import json
+
+    flagged = json.loads(ds.attrs.get("flagged_values") or "{}")
+    if flagged:  # values accepted but counted (budget.plausible)
+        rows.append(("flagged values", ", ".join(f"{k}: {n}" for k, n in flagged.items())))
     lines = [f"{k:<22}{v}" for k, v in rows]
     lines.append("mean over the period")
     for col, term in terms.summary_columns():
@@ -253,7 +259,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--great-circle", action="store_true", help="join vertices by great circles, not lon-lat straight lines")
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")
-    r.add_argument("--var", action="append", metavar="ROLE=NAME", help="take variable NAME for ROLE (u, v, q, ps, qu, qv, w; optional precip, evap, ql, qi, tu, tv, wl, wi)")
+    r.add_argument("--var", action="append", metavar="ROLE=NAME", help=var_help())
     r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong")
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")
@@ -279,6 +285,10 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--out", default="demo", help="folder to write into")
     m.add_argument("--overwrite", action="store_true")
     m.set_defaults(func=cmd_sample)
+
+    from app.figure_cmd import add_parser as add_figure_parser
+
+    add_figure_parser(sub)
     return p
 
 

@@ -531,7 +531,8 @@ PERIOD_TERMS = [(t.name, t.label) for t in terms.table_terms()]
 
 #: Closure terms shown as period means in their own units (not convertible rates).
 CLOSURE_MEANS = [
-    ("dry_air_residual_pressure", terms.term("dry_air_residual_pressure").label, "hPa day⁻¹", 1.0),
+    ("dry_air_residual_pressure", terms.term("dry_air_residual_pressure").label, "hPa day⁻¹",
+     float(terms.to_display("dry_air_residual_pressure", 1.0, "hPa/day"))),
     ("mass_correction_speed", terms.term("mass_correction_speed").label, "cm s⁻¹", 100.0),
 ]
 

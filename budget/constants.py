@@ -12,3 +12,16 @@ WATER_DENSITY = 1000.0
 
 #: Seconds per day, s.
 SECONDS_PER_DAY = 86400.0
+
+#: Molar mass of dry air, kg mol-1: 28.96546e-3 (Picard et al. 2008, Metrologia 45, CIPM-2007
+#: equation for moist air; from memory, the value MetPy also uses).
+MOLAR_MASS_DRY_AIR = 28.96546e-3
+
+#: Molar mass of water, kg mol-1: 18.015268e-3 (IAPWS-95, Wagner and Pruss 2002; from memory).
+MOLAR_MASS_WATER = 18.015268e-3
+
+#: epsilon = Rd / Rv = Mw / Md ≈ 0.62196, the ratio in q = eps e / (p - (1 - eps) e).
+EPSILON = MOLAR_MASS_WATER / MOLAR_MASS_DRY_AIR
+
+#: 0 degC in kelvin (SI brochure: T/K = t/degC + 273.15).
+ZERO_CELSIUS = 273.15

@@ -51,31 +51,13 @@ import re
 import numpy as np
 import pandas as pd
 
-from .constants import WATER_DENSITY
 from .errors import FieldsError, RequestError
+from .units import WATER_AMOUNT, WATER_RATE
+from .units import normalise as _norm
 
-#: Liquid-water depth to mass per area: 1 mm = 1 kg m-2 at ρw = 1000 kg m-3 (common practice).
-_MM = WATER_DENSITY / 1000.0
-_M = WATER_DENSITY
-
-#: Amount units (lower-cased, spaces collapsed) → factor to kg m-2.
-AMOUNT_UNITS = {
-    "kg m-2": 1.0, "kg/m2": 1.0, "kg/m^2": 1.0, "kg m**-2": 1.0, "kg m^-2": 1.0, "kg.m-2": 1.0,
-    "mm": _MM, "millimeter": _MM, "millimetre": _MM, "mm of water equivalent": _MM,
-    "cm": 10 * _MM, "m": _M, "metre": _M, "meter": _M, "m of water equivalent": _M,
-}
-#: Rate units → factor to kg m-2 s-1.
-RATE_UNITS = {
-    "kg m-2 s-1": 1.0, "kg/m2/s": 1.0, "kg m**-2 s**-1": 1.0, "kg m^-2 s^-1": 1.0,
-    "kg.m-2.s-1": 1.0, "kg/(m2 s)": 1.0, "kg m-2s-1": 1.0,
-    "mm s-1": _MM, "mm/s": _MM, "mm s**-1": _MM,
-    "mm h-1": _MM / 3600, "mm/h": _MM / 3600, "mm hr-1": _MM / 3600, "mm/hr": _MM / 3600,
-    "mm/hour": _MM / 3600,
-    "mm day-1": _MM / 86400, "mm/day": _MM / 86400, "mm d-1": _MM / 86400, "mm/d": _MM / 86400,
-    "mm day**-1": _MM / 86400,
-    "m s-1": _M, "m/s": _M, "m s**-1": _M, "m of water equivalent s-1": _M,
-    "m h-1": _M / 3600, "m/h": _M / 3600, "m day-1": _M / 86400, "m/day": _M / 86400,
-}
+#: Amount units (kg m-2) and rate units (kg m-2 s-1) of liquid water: budget.units.
+AMOUNT_UNITS = WATER_AMOUNT
+RATE_UNITS = WATER_RATE
 
 #: CF standard names (CF standard-name table v83) of each role, split into rates and amounts.
 PRECIP_RATE_NAMES = ("precipitation_flux", "lwe_precipitation_rate")
@@ -87,10 +69,6 @@ EVAP_AMOUNT_NAMES = ("water_evapotranspiration_amount", "water_evaporation_amoun
 _ECMWF_EVAP = {"e", "mer", "avg_ie"}
 
 _NEVER = ("none", "never", "no", "0", "infinite", "inf")
-
-
-def _norm(u) -> str:
-    return " ".join(str(u).strip().split()).lower()
 
 
 # --------------------------------------------------------------------------------------

@@ -14,7 +14,7 @@ import pytest
 import xarray as xr
 
 from budget.errors import FieldsError, RequestError
-from budget.fields import UNIT_FACTORS, Fields, open_fields
+from budget.fields import Fields, open_fields
 from budget.vertical import HybridLevels, PressureLevels
 
 T0 = np.datetime64("2021-03-01T00:00", "ns")
@@ -555,32 +555,6 @@ def test_units_override_for_missing_or_wrong_attribute(tmp_path):
     check_levels_formula(g)
 
 
-def test_accepted_unit_factors_agree_with_pint():
-    # Reference: pint's unit registry as shipped with MetPy (general-purpose library).
-    # 'mb' is the meteorological millibar, which pint reads as millibarn: checked by hand
-    # (1 mb = 1 hPa = 100 Pa, SI brochure).  Lengths of liquid water use 1000 kg m-3
-    # (common practice, no source).
-    from metpy.units import units as ureg
-
-    from budget.fields import _SI as si  # the SI unit of each role, in CF spelling
-    # the tables hold lower-cased spellings; give pint the case SI prefixes need
-    spelling = {"pa": "Pa", "hpa": "hPa", "kpa": "kPa", "n m-2": "N m-2"}
-    checked = 0
-    for role, table in UNIT_FACTORS.items():
-        for unit, factor in table.items():
-            unit = spelling.get(unit, unit)
-            if unit == "mb":
-                assert factor == 100.0
-                continue
-            if si[role] == "kg m-2" and unit in ("mm", "cm", "m"):
-                expected = ureg.Quantity(1.0, unit).to("m").magnitude * 1000.0
-            else:
-                expected = ureg.Quantity(1.0, unit).to(si[role]).magnitude
-            assert factor == pytest.approx(expected, rel=1e-12), (role, unit)
-            checked += 1
-    assert checked > 40
-
-
 def test_wind_unit_spellings(tmp_path):
     for i, spelling in enumerate(["m s-1", "m/s", "m s**-1", "m.s-1", "meters/second", "m s^-1"]):
         f = open_fields(make_levels(wind_units=spelling, ntime=1))
@@ -602,14 +576,16 @@ def test_start_end_window_inclusive(tmp_path):
     assert h.times.size == 1
 
 
-def test_no_time_dimension_gives_one_step():
-    ds = make_column(ntime=1).isel(time=0, drop=True)
-    f = open_fields(ds)
-    assert f.ds.sizes["time"] == 1 and np.isnat(f.times[0])
-    assert f.warnings
-    assert f.ds["w"].dims == ("time", "lat", "lon")
+def test_no_time_dimension_reads_a_scalar_or_attribute_time_else_refuses(tmp_path):
     g = open_fields(make_column(ntime=1).isel(time=0))  # a scalar time coordinate survives
-    assert g.times[0] == T0
+    assert g.times[0] == T0 and g.ds["w"].dims == ("time", "lat", "lon")
+    ds = make_column(ntime=1).isel(time=0, drop=True)
+    ds.attrs["valid_time"] = "2021-03-01T06:00Z"  # ISO 8601, UTC designator
+    f = open_fields(write(ds, tmp_path, "attr.nc"))
+    assert f.ds.sizes["time"] == 1 and f.times[0] == T0 + STEP
+    assert any("valid_time" in w for w in f.warnings)
+    bare = make_column(ntime=1).isel(time=0, drop=True)
+    raises(["bare.nc", "no time dimension", "time attribute"], write(bare, tmp_path, "bare.nc"))
 
 
 def test_noleap_calendar_converted_with_warning(tmp_path):
@@ -739,7 +715,7 @@ def test_error_var_map_names_absent_variable(tmp_path):
 
 
 def test_error_var_map_unknown_role(tmp_path):
-    raises(["'t'", "u, v, q, ps, qu, qv, w"], make_levels(), var_map={"t": "ua"})
+    raises(["'temp'", "u, v, q, ps, qu, qv, w"], make_levels(), var_map={"temp": "ua"})
 
 
 def test_error_var_map_without_levels(tmp_path):
@@ -755,8 +731,8 @@ def test_error_missing_units_names_variable_file_and_fix(tmp_path):
 
 
 def test_error_unknown_unit(tmp_path):
-    ds = make_levels(wind_units="knots")
-    raises(["'ua'", "in.nc", "'knots'", "m s-1", "--units u=m/s"], write(ds, tmp_path))
+    ds = make_levels(wind_units="furlongs/fortnight")
+    raises(["'ua'", "in.nc", "'furlongs/fortnight'", "m s-1", "--units u=m/s"], write(ds, tmp_path))
 
 
 def test_error_q_in_g_per_kg_labelled_kg_per_kg(tmp_path):

@@ -22,7 +22,8 @@ def test_period_table_shows_the_closure_terms(sample_budget):
     # the rows are the Dataset's own means in the shown units (mm/day = kg m-2 s-1 × 86400)
     mean_eff = float(sample_budget["mass_correction_convergence"].mean()) * 86400
     assert rows["Effect of the mass correction"]["mean_value"] == pytest.approx(mean_eff, rel=1e-9)
-    np.testing.assert_allclose(rows["Dry-air residual"]["mean_value"], float(sample_budget["dry_air_residual_pressure"].mean()))
+    # shown in hPa/day: Pa s-1 x 86400 / 100
+    np.testing.assert_allclose(rows["Dry-air residual"]["mean_value"], float(sample_budget["dry_air_residual_pressure"].mean()) * 864.0)
 
 
 def test_column_inputs_show_no_correction_rows():
