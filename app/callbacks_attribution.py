@@ -12,7 +12,6 @@ into its cache key and ``budget_options`` turns it into the engine's BudgetOptio
 
 from __future__ import annotations
 
-import logging
 import threading
 from collections import OrderedDict
 
@@ -27,8 +26,7 @@ from budget.options import BudgetOptions, ClosureOptions
 
 from . import figures_attribution as fa
 from .figures import empty_figure
-
-log = logging.getLogger("fluxfence.app")
+from .messages import problem
 
 TITLE = "Where the water comes from"
 MAX_AR = 5000.0  # kg m-1 s-1; IVT of the strongest rivers is a few thousand (common practice, no source)
@@ -76,6 +74,13 @@ def budget_options(method: str, correction: str, record, fields_kind: str) -> Bu
     )
 
 
+def job_options(method: str, correction: str, record, fields_kind: str) -> BudgetOptions:
+    """``budget_options`` for a record that came from the page: checked again here."""
+    record = record or {}
+    checked = read_options(record.get("layers"), record.get("ar", AR_IVT_THRESHOLD))
+    return budget_options(method, correction, checked, fields_kind)
+
+
 @callback(
     Output("insight-options", "data"),
     Output("insight-message", "children"),
@@ -96,18 +101,27 @@ def apply_options(layers_text, ar_threshold, current):
 
 
 # ---------------------------------------------------------------------------------------------
-# where the budget and the fields are (the dashboard's cache and opened field sets)
+# where the budget and the fields are (the server's state, app/state.py)
 # ---------------------------------------------------------------------------------------------
 def _budget_of(want):
-    from . import callbacks
+    """The finished budget of the page's request (its key derived again here), or None."""
+    from .state import current
 
-    return callbacks.finished_budget(want)
+    if not want or not want.get("key"):
+        return None
+    state = current()
+    try:
+        key = state.budget_key(want["source"], want["geojson"], want["method"],
+                               want["correction"], want.get("attribution"))
+    except (FluxfenceError, KeyError, TypeError, AttributeError):
+        return None
+    return state.results.get(key) if key == want["key"] else None
 
 
 def _fields_of(source_id):
-    from . import callbacks
+    from .state import current
 
-    return callbacks.opened_fields(source_id)
+    return current().fields(source_id)
 
 
 _SPLITS: OrderedDict = OrderedDict()
@@ -237,7 +251,7 @@ def show_insight(want, _shown, period, percentile):
             "events": rows,
         }
     except Exception as exc:  # noqa: BLE001
-        return _waiting(_problem(exc, "drawing where the water comes from"), name)
+        return _waiting(problem(exc, "drawing where the water comes from"), name)
 
 
 @callback(
@@ -261,7 +275,7 @@ def show_eddies(want, _shown, period):
     try:
         split = _split(want, lo, hi, times)
     except Exception as exc:  # noqa: BLE001
-        return empty_figure(f"No mean-flow / eddy split for {name}."), _problem(exc, "splitting the import")
+        return empty_figure(f"No mean-flow / eddy split for {name}."), problem(exc, "splitting the import")
     return fa.eddy_figure(split, name=name), fa.SAMPLING_NOTE
 
 
@@ -280,12 +294,3 @@ def pick_event(cell, rows):
     if row is None:
         raise PreventUpdate
     return [int(row["first"]), int(row["last"])], int(row["first"])
-
-
-def _problem(exc: BaseException, doing: str) -> str:
-    """One sentence for the page; a traceback only in the server log."""
-    if isinstance(exc, FluxfenceError):
-        return str(exc)
-    log.exception("unexpected problem while %s", doing)
-    return (f"Something unexpected went wrong while {doing} ({type(exc).__name__}); "
-            "the details are in the server log.")

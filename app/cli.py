@@ -240,7 +240,8 @@ def cmd_sample(args) -> int:
 def cmd_serve(args) -> int:
     from app.server import serve
 
-    serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port)
+    serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port,
+          workers=args.workers, job_threads=args.job_threads)
     return 0
 
 
@@ -279,6 +280,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--data-dir", help="folder the dashboard may read fields from")
     s.add_argument("--host", default="127.0.0.1")
     s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--workers", type=int, default=8, help="request threads of the web server (default 8)")
+    s.add_argument("--job-threads", type=int, default=2, help="budgets computed at once (default 2)")
     s.set_defaults(func=cmd_serve)
 
     m = sub.add_parser("sample", help="write the invented demo event and basin outline")
