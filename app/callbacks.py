@@ -194,7 +194,7 @@ def _start(state, want: dict, key: str, again: bool = False):
     Input("budget-again", "n_clicks"),
     Input("insight-options", "data"),  # layers and AR threshold (app/callbacks_attribution.py)
 )
-def request_budget(selected, method, source_id, regions, correction, _again, attribution):
+def request_budget(selected, method, source_id, regions, correction, _again, attribution=None):
     """What the page wants to see, with the server's key for it; starts its job."""
     rec = next((r for r in regions or [] if r["id"] == selected), None)
     if rec is None:
