@@ -241,7 +241,7 @@ def cmd_serve(args) -> int:
     from app.server import serve
 
     serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port,
-          workers=args.workers, job_threads=args.job_threads)
+          workers=args.workers, job_threads=args.job_threads, pool_workers=args.pool_workers)
     return 0
 
 
@@ -282,6 +282,7 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--port", type=int, default=8050)
     s.add_argument("--workers", type=int, default=8, help="request threads of the web server (default 8)")
     s.add_argument("--job-threads", type=int, default=2, help="budgets computed at once (default 2)")
+    s.add_argument("--pool-workers", type=int, default=1, help="worker processes for records over 2000 time steps (default 1)")
     s.set_defaults(func=cmd_serve)
 
     m = sub.add_parser("sample", help="write the invented demo event and basin outline")
