@@ -531,7 +531,7 @@ def _panel_title(what: str, name: str | None, time_label: str | None = None) -> 
     """A panel title naming the region (and the time shown) on a second, smaller line."""
     where = f"{name or 'the region'}" + (f" · {time_label}" if time_label else "")
     return dict(text=f"{what}<br><span style='font-size:12px'>{where}</span>", x=0.01,
-                y=0.98, yanchor="top", font=dict(size=14))
+                y=1.0, yref="container", yanchor="top", pad=dict(t=24), font=dict(size=14))
 
 
 def _note_figure(text: str, title: dict | None = None) -> go.Figure:

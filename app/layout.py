@@ -113,9 +113,8 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         map_controls,
         click_bar,
         _notice("map-message"),
-        # the map takes the card's spare height, so no empty band is left under the slider
-        dcc.Graph(id="map", config=MAP_CONFIG, className="map-graph", responsive=True,
-                  style={"flex": "1 1 auto", "minHeight": "560px"}),
+        dcc.Graph(id="map", config=MAP_CONFIG, className="map-graph",
+                  style={"height": "560px"}),
         time_bar,
         cls="map-card",
     )
