@@ -169,6 +169,9 @@ def _start(state, want: dict, key: str, again: bool = False):
 
     def work(progress):
         fields = state.fields(source)
+        if fields.ds.sizes["time"] > state.settings.long_steps:  # a long record: the pool
+            return state.pool().run(key, progress, state.checked_paths(source), geojson,
+                                    name, method, correction)
         region = region_from_geojson(geojson, name=name)
         ds = compute(fields, region, method=method, profiles=True, scheduler="sync",
                      mass_correction=False if correction == "off" else None,
