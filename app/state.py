@@ -206,9 +206,11 @@ class AppState:
         return self._coast
 
     # -- the cache key ------------------------------------------------------------------------
-    def budget_key(self, source_id, geojson: dict, method: str, correction: str) -> str:
+    def budget_key(self, source_id, geojson: dict, method: str, correction: str,
+                   attribution=None) -> str:
         """The one key of a budget result: engine version, input files (path, size, mtime),
-        region geometry, method and mass-correction setting."""
+        region geometry, method, mass-correction setting and the attribution record (layer
+        bounds, AR threshold: app/callbacks_attribution.py)."""
         if method not in METHODS or correction not in CORRECTIONS:
             raise RequestError("The page asked for an unknown method or correction setting; "
                                "reload the page.")
@@ -226,6 +228,7 @@ class AppState:
             "bbox": props.get("bbox"),
             "method": method,
             "correction": correction,
+            "attribution": attribution,
         }, sort_keys=True, default=str)
         return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
