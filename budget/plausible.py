@@ -72,8 +72,7 @@ class Where:
 
     def cell(self, index: int) -> str:
         st = self.stencil
-        j, i = divmod(int(st.touched[int(index)]), st.grid.shape[1])
-        return f"({st.grid.lon[i]:g}°E, {st.grid.lat[j]:g}°N)"
+        return st.grid.point_text(st.touched[int(index)])
 
     def source(self, name: str) -> str:
         roles = {**dict(getattr(self.fields, "roles", {})), **dict(getattr(self.fields, "extra_roles", {}))}
