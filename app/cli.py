@@ -12,11 +12,11 @@ import sys
 import time
 from pathlib import Path
 
-from app import cli_records, runfiles
+from app import cli_attribution, cli_records, runfiles
 from budget import __version__
 from budget.catalogue import var_help
 from budget.errors import FluxfenceError, RequestError
-from budget.options import ClosureOptions
+from budget.options import ClosureOptions, RunOptions
 
 CAUTION = (
     "Caution: reanalysis budgets are estimates with known imbalances; they are not a substitute "
@@ -102,7 +102,13 @@ def cmd_run(args) -> int:
         raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
     if args.region and args.bbox:
         raise RequestError("Give either --region or --bbox, not both.")
+    if args.dataset:  # the same region on several field sets, side by side
+        return cli_attribution.run_datasets(args, _open_fields, ClosureOptions(**_closure_options(args)),
+                                            _Progress(not args.quiet), CAUTION)
+    if not args.fields:
+        raise RequestError("Give the field files to read (NetCDF, GRIB, Zarr or globs), or --dataset NAME=FILES twice or more.")
     if args.each_feature or cli_records.is_many(args):  # every feature of --region in one pass
+        cli_attribution.refuse_with_many(args)
         return cli_records.run_many(args, lambda: _open_fields(args), ClosureOptions(**_closure_options(args)),
                                     _Progress(not args.quiet), CAUTION)
     # every output is planned and checked before anything is computed (budget.outputs)
@@ -110,14 +116,16 @@ def cmd_run(args) -> int:
     out = plan.file(args.out, "--out", SUFFIXES)
     nc = plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES) if args.netcdf else None
     tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
-    for path in tables.values():
+    extra = cli_attribution.targets(args)
+    for path in [*tables.values(), *extra.values()]:
         if path != out:
-            plan.file(path, "--out")
+            plan.file(path, "--out" if path in tables.values() else "--events")
     partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
     files = ([] if "periods" in tables else [out]) + ([nc] if nc else [])  # --aggregate puts the period table in --out
-    ds, fields, region = _compute_and_write(args, plan, partial, files, tables)
+    ds, fields, region = _compute_and_write(args, plan, partial, files, tables, extra)
     if not args.quiet:
         print(_summary(ds))
+        print("\n".join(cli_attribution.summary_lines(ds)))
     if args.eddies:
         from budget.eddies import decompose
 
@@ -132,7 +140,7 @@ def cmd_run(args) -> int:
     return 0
 
 
-def _compute_and_write(args, plan, partial, targets, tables):
+def _compute_and_write(args, plan, partial, targets, tables, extra):
     """One budget, its outputs staged and committed together; the resume folder goes last."""
     import json
 
@@ -155,7 +163,9 @@ def _compute_and_write(args, plan, partial, targets, tables):
                 if k:
                     runfiles.hold("staged")
                 plan.stage(target, encode(ds, target))
-            cli_records.write_tables(args, ds, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
+            stage_table = lambda df, path: plan.stage(path, frame_csv_text(df))  # noqa: E731
+            cli_records.write_tables(args, ds, tables, write=stage_table)
+            cli_attribution.write_tables(args, ds, extra, write=stage_table)
             plan.commit()
         except KeyboardInterrupt:
             raise runfiles.WriteInterrupted(partial) from None
@@ -163,22 +173,23 @@ def _compute_and_write(args, plan, partial, targets, tables):
     return ds, fields, region
 
 
-def _compute(args, fields, region, partial, **extra):
+def _compute(args, fields, region, partial):
     """compute() keeping the resume folder (removed once the outputs are in place)."""
     from budget.errors import ResumeMismatch
     from budget.ledger import compute
 
     try:
-        return compute(fields, region, method=args.method, progress=_Progress(not args.quiet), scheduler=args.scheduler,
-                       resume=partial, keep_resume=True, **extra, **_closure_options(args))
+        return compute(fields, region, options=cli_attribution.budget_options(args, ClosureOptions(**_closure_options(args))),
+                       run=RunOptions(progress=_Progress(not args.quiet), scheduler=args.scheduler, resume=partial,
+                                      keep_resume=True))
     except ResumeMismatch as exc:
         raise RequestError(runfiles.mismatch_message(exc)) from None
 
 
-def _open_fields(args):
+def _open_fields(args, files=None):
     from budget.fields import open_fields
 
-    return open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    return open_fields(files if files is not None else args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
 
 
 def cmd_sample(args) -> int:
@@ -207,7 +218,7 @@ def cmd_serve(args) -> int:
     from app.server import serve
 
     serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port,
-          workers=args.workers, job_threads=args.job_threads)
+          workers=args.workers, job_threads=args.job_threads, pool_workers=args.pool_workers)
     return 0
 
 
@@ -217,7 +228,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True)
 
     r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
-    r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
+    r.add_argument("fields", nargs="*", help="NetCDF or GRIB files, globs or a Zarr store (or --dataset NAME=FILES)")
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
     r.add_argument("--bbox", help="box W,S,E,N in degrees, e.g. --bbox -100,30,-80,45 (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
@@ -241,6 +252,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
     cli_records.add_options(r)
+    cli_attribution.add_options(r)
     cli_records.add_region_options(r)
     r.set_defaults(func=cmd_run)
 
@@ -251,6 +263,7 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--port", type=int, default=8050)
     s.add_argument("--workers", type=int, default=8, help="request threads of the web server (default 8)")
     s.add_argument("--job-threads", type=int, default=2, help="budgets computed at once (default 2)")
+    s.add_argument("--pool-workers", type=int, default=1, help="worker processes for records over 2000 time steps (default 1)")
     s.set_defaults(func=cmd_serve)
 
     m = sub.add_parser("sample", help="write the invented demo event and basin outline")
