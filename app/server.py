@@ -102,7 +102,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) 
 
     ``job_threads``: how many budgets are computed at once (threads of this process).
     """
-    from . import callbacks, regions  # noqa: F401 - registers the callbacks
+    from . import callbacks, callbacks_report, regions  # noqa: F401 - registers the callbacks
     from .layout import build_layout
     from .state import Settings, Source, configure
 
