@@ -113,3 +113,89 @@ def datasets_figure(stacked, variable: str = "p_minus_e", scale: float = 86400.0
                         line=dict(color=DATASET_COLOURS[i % len(DATASET_COLOURS)], width=2))
     label = stacked[variable].attrs.get("long_name", variable)
     return _layout(fig, f"{label} by dataset", xaxis_title="time (UTC)", yaxis_title=f"{variable.replace('_', ' ')} ({unit})")
+
+
+# ---------------------------------------------------------------------------------------------
+# the selected period: step weights, atmospheric-river share, recycling, events as table rows
+# ---------------------------------------------------------------------------------------------
+def period_weights(budget, start: int, end: int) -> np.ndarray:
+    """Interval length (s) of each step inside steps ``start..end`` (inclusive), 0 outside:
+    steps are intervals as in budget.events (a value at tᵢ stands for [tᵢ, tᵢ₊₁))."""
+    from budget.events import step_seconds
+
+    dt = step_seconds(budget["time"].values)
+    w = np.zeros_like(dt)
+    w[int(start):int(end) + 1] = dt[int(start):int(end) + 1]
+    return w
+
+
+def ar_share_summary(budget, start: int, end: int) -> dict | None:
+    """The atmospheric-river share of the period's inflow: in total and by the edge where it
+    crossed (each edge's AR inflow over the region's whole inflow, so the edges add up to the
+    total).  None when the budget carries no AR inflow."""
+    if "ar_inflow" not in budget or "inflow" not in budget:
+        return None
+    from budget.attribution import ar_share
+
+    w = period_weights(budget, start, end)
+    total_in = float(np.nansum(budget["inflow"].values * w))
+    edges = []
+    if "ar_edge_inflow" in budget:
+        ar_edge = budget["ar_edge_inflow"].transpose("time", "edge").values
+        for k, e in enumerate(budget["edge"].values):
+            part = float(np.nansum(ar_edge[:, k] * w))
+            edges.append({"edge": str(e),
+                          "share_percent": 100.0 * part / total_in if total_in > 0 else None})
+    share = ar_share(budget, w)
+    return {
+        "share_percent": 100.0 * share if np.isfinite(share) else None,
+        "threshold": budget["ar_inflow"].attrs.get("ar_ivt_threshold", ""),
+        "mean_inflow_kg_s": total_in / float(w.sum()) if w.sum() > 0 else None,
+        "edges": edges,
+    }
+
+
+def recycling_summary(budget, start: int, end: int) -> dict:
+    """The bulk recycling ratio of the period (budget.recycling.period_ratio), or why there is
+    none: {"ratio": float | None, "text": one sentence, "assumptions": text}."""
+    from budget.errors import FluxfenceError
+    from budget.recycling import ASSUMPTIONS, period_ratio
+
+    try:
+        out = period_ratio(budget, period_weights(budget, start, end))
+    except FluxfenceError:
+        return {"ratio": None, "assumptions": ASSUMPTIONS,
+                "text": "No recycling ratio: it needs evaporation, and these fields carry "
+                        "neither evaporation nor precipitation; serve field files that include "
+                        "one of them."}
+    ratio = out["recycling_ratio"]
+    if not np.isfinite(ratio):
+        return {"ratio": None, "assumptions": ASSUMPTIONS,
+                "text": "No recycling ratio for this period: no water entered or evaporated "
+                        "(E·A + 2·F_in is not positive)."}
+    return {"ratio": float(ratio), "assumptions": ASSUMPTIONS,
+            "text": f"Bulk recycling ratio ρ = {ratio:.3f} ({out['evaporation_source']}; mean "
+                    f"E {out['mean_evaporation_kg_m2_s'] * 86400:.2f} mm/day, mean inflow "
+                    f"{out['mean_inflow_kg_s']:.3g} kg/s)."}
+
+
+def event_steps(times, start_iso: str, end_iso: str) -> tuple[int, int]:
+    """First and last step index of an event from its ISO 8601 start and (interval) end."""
+    t = np.asarray(times, dtype="datetime64[ns]")
+    a = np.datetime64(start_iso.rstrip("Z"), "ns")
+    b = np.datetime64(end_iso.rstrip("Z"), "ns")
+    first = int(np.searchsorted(t, a, side="left"))
+    last = int(np.searchsorted(t, b, side="left")) - 1
+    first = min(max(first, 0), t.size - 1)
+    return first, min(max(last, first), t.size - 1)
+
+
+def event_table(budget, events) -> list[dict]:
+    """``event_rows`` with the step range of each event (``first``, ``last``) and a row id, so
+    that a click on a row can set the period."""
+    rows = event_rows(events)
+    times = budget["time"].values
+    for row in rows:
+        row["id"] = row["event"]
+        row["first"], row["last"] = event_steps(times, row["start"], row["end"])
+    return rows
