@@ -33,7 +33,8 @@ def download_report(_pdf, _png, want, period):
     fmt = "png" if ctx.triggered_id == "dl-report-png" else "pdf"
     try:
         state = current()
-        key = state.budget_key(want["source"], want["geojson"], want["method"], want["correction"])
+        key = state.budget_key(want["source"], want["geojson"], want["method"], want["correction"],
+                               want.get("attribution"))
         ds = state.results.get(key)
         if ds is None:
             return no_update, "The budget is still being computed; ask for the report once it is on screen."
