@@ -24,11 +24,14 @@ SAMPLING_NOTE = (
 )
 
 
+SHORT_SAMPLING_NOTE = "period means; the split depends on the sampling interval (Seager and Henderson 2013)"
+
+
 def _layout(fig: go.Figure, title: str, **extra) -> go.Figure:
     fig.update_layout(
         title=dict(text=title, x=0.01, font=dict(size=14)),
         font=dict(family=FONT, color=INK, size=12), paper_bgcolor=PAPER, plot_bgcolor=PAPER,
-        margin=dict(l=70, r=20, t=50, b=60), legend=dict(orientation="h", y=-0.25, x=0),
+        margin=dict(l=70, r=20, t=60, b=90), legend=dict(orientation="h", y=-0.32, x=0),
         **extra,
     )
     fig.update_xaxes(gridcolor=GRID, zerolinecolor=MUTED)
@@ -53,8 +56,8 @@ def layer_edge_figure(budget, start: int = 0, end: int | None = None, name: str 
                     marker_color=LAYER_COLOURS[i % len(LAYER_COLOURS)],
                     hovertemplate="edge %{x}<br>" + str(layer) + ": %{y:.3s} kg/s<extra></extra>")
     who = f" — {name}" if name else ""
-    return _layout(fig, f"Import by layer and edge{who}", barmode="relative",
-                   xaxis_title="edge", yaxis_title="period-mean import (kg/s, + into the region)")
+    return _layout(fig, f"Period-mean import by layer and edge{who}", barmode="relative",
+                   xaxis_title="", yaxis_title="import (kg/s, + in)")
 
 
 def eddy_figure(split, name: str | None = None) -> go.Figure:
@@ -67,8 +70,8 @@ def eddy_figure(split, name: str | None = None) -> go.Figure:
                     hovertemplate="%{x}: %{y:.3s} kg/s<extra>" + label + "</extra>")
     who = f" — {name}" if name else ""
     fig = _layout(fig, f"Mean flow and transient eddies{who}", barmode="group",
-                  xaxis_title="edge", yaxis_title="period-mean import (kg/s)")
-    fig.add_annotation(text=SAMPLING_NOTE, xref="paper", yref="paper", x=0, y=1.0, yanchor="bottom",
+                  xaxis_title="", yaxis_title="import (kg/s, + in)")
+    fig.add_annotation(text=SHORT_SAMPLING_NOTE, xref="paper", yref="paper", x=0, y=1.0, yanchor="bottom",
                        showarrow=False, font=dict(size=10, color=MUTED), align="left")
     return fig
 
