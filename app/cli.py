@@ -85,6 +85,11 @@ def _summary(ds) -> str:
         ("method", ds.attrs.get("method", "")),
         ("mass correction", ds.attrs.get("mass_correction", "")),
     ]
+    import json
+
+    flagged = json.loads(ds.attrs.get("flagged_values") or "{}")
+    if flagged:  # values accepted but counted (budget.plausible)
+        rows.append(("flagged values", ", ".join(f"{k}: {n}" for k, n in flagged.items())))
     lines = [f"{k:<22}{v}" for k, v in rows]
     lines.append("mean over the period")
     for col, term in terms.summary_columns():
@@ -235,7 +240,8 @@ def cmd_sample(args) -> int:
 def cmd_serve(args) -> int:
     from app.server import serve
 
-    serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port)
+    serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port,
+          workers=args.workers, job_threads=args.job_threads)
     return 0
 
 
@@ -274,6 +280,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--data-dir", help="folder the dashboard may read fields from")
     s.add_argument("--host", default="127.0.0.1")
     s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--workers", type=int, default=8, help="request threads of the web server (default 8)")
+    s.add_argument("--job-threads", type=int, default=2, help="budgets computed at once (default 2)")
     s.set_defaults(func=cmd_serve)
 
     m = sub.add_parser("sample", help="write the invented demo event and basin outline")

@@ -35,8 +35,14 @@ UNITS = [
     {"label": "m³/s", "value": "m3/s"},
 ]
 CORRECTION = [
-    {"label": "as the engine advises", "value": "default"},  # on for level inputs
-    {"label": "off", "value": "off"},
+    # the engine's default: applied for level inputs, which carry the dry-air flux
+    {"label": "on: winds adjusted so dry air balances (level inputs)", "value": "default"},
+    {"label": "off: the files' winds as they are", "value": "off"},
+]
+BUDGETS = [
+    {"label": "Water vapour", "value": "vapour"},
+    {"label": "Dry-air mass", "value": "dry"},
+    {"label": "Total water", "value": "total"},
 ]
 METHODS = [
     {"label": "boundary line integral", "value": "boundary"},
@@ -121,14 +127,19 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
                          options=[{"label": r["name"], "value": r["id"]} for r in initial_regions],
                          placeholder="no region yet — draw one on the map",
                          className="grow"),
-            html.Button("Remove", id="region-remove", className="btn"),
-        ]),
-        html.Div(className="row", children=[
-            dcc.Input(id="region-name", type="text", placeholder="name this region",
-                      maxLength=80, debounce=False, className="grow"),
-            html.Button("Rename", id="region-rename", className="btn"),
         ]),
         html.Div(id="region-info", className="muted small"),
+        html.Div(id="region-actions", style={} if first else {"display": "none"}, children=[
+            html.Div(className="row", children=[
+                dcc.Input(id="region-name", type="text", placeholder="name this region",
+                          maxLength=80, debounce=False, className="grow"),
+                html.Button("Rename", id="region-rename", className="btn"),
+            ]),
+            html.Div(className="row", children=[
+                html.Button("Download GeoJSON", id="dl-region", className="btn"),
+                html.Button("Remove from the list", id="region-remove", className="btn quiet"),
+            ]),
+        ]),
         html.Details(className="adder", open=False, id="adder-upload", children=[
             html.Summary("Upload a GeoJSON or zipped shapefile"),
             dcc.Upload(id="upload", className="dropzone", multiple=False, children=html.Div([
@@ -155,15 +166,15 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             html.Button("Add this box", id="box-add", className="btn primary"),
             html.Div("West greater than east crosses the antimeridian.", className="muted small"),
         ]),
-        html.Div(className="row downloads", children=[
-            html.Button("Region as GeoJSON", id="dl-region", className="btn"),
-        ]),
         cls="side-card",
     )
 
     budget_card = _card(
         "Budget",
         html.Div(className="controls", children=[
+            html.Div([html.Span("Budget of", className="control-label"),
+                      dcc.RadioItems(id="budget-kind", options=BUDGETS, value="vapour",
+                                     inline=True, className="segmented")]),
             html.Div([html.Span("Convergence from", className="control-label"),
                       dcc.RadioItems(id="method", options=METHODS, value="boundary",
                                      inline=True, className="segmented")]),
@@ -177,10 +188,13 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         _notice("budget-message"),
         html.Div(id="budget-running", className="running", style={"display": "none"},
                  children=[
-            html.Span("Computing the budget…"),
+            html.Span("Computing", className="control-label"),
             html.Progress(id="budget-progress", **{"aria-label": "budget progress"}),
+            html.Span(id="budget-progress-text", className="muted small"),
             html.Button("Cancel", id="budget-cancel", className="btn small"),
         ]),
+        html.Button("Start again", id="budget-again", className="btn primary small",
+                    style={"display": "none"}),
         html.Div(id="budget-table"),
         html.Div(className="period", children=[
             html.Span("Period for the table", className="control-label"),
@@ -188,11 +202,12 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
                             allowCross=False, allow_direct_input=False),
             html.Span(id="period-label", className="muted small"),
         ]),
-        html.Div(className="row downloads", children=[
-            html.Button("Series as CSV", id="dl-csv", className="btn"),
-            html.Button("Full budget as NetCDF", id="dl-nc", className="btn"),
+        html.Div(id="budget-actions", className="row downloads", children=[
+            html.Button("Series as CSV", id="dl-csv", className="btn", disabled=True),
+            html.Button("Full budget as NetCDF", id="dl-nc", className="btn", disabled=True),
+            html.Span(id="dl-reason", className="muted small"),
         ]),
-        cls="side-card",
+        cls="side-card", id="budget-card",
     )
 
     series_card = _card("Through the event", dcc.Graph(id="series", config=PLOT_CONFIG,
@@ -227,9 +242,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         dcc.Store(id="vertices", data=[]),
         dcc.Store(id="upload-held", data=None),
         dcc.Store(id="want", data=None),
-        dcc.Store(id="job", data=None),
-        dcc.Store(id="done", data=None),
-        dcc.Interval(id="budget-watch", interval=2000, disabled=True),
+        dcc.Interval(id="budget-poll", interval=300, disabled=True),
         dcc.Download(id="download-region"),
         dcc.Download(id="download-csv"),
         dcc.Download(id="download-nc"),

@@ -8,15 +8,14 @@ a field set by its index in that list, never by a path.  With neither, it opens 
 invented sample event.  Debug is off, the bind address defaults to 127.0.0.1, uploads are
 capped (UPLOAD_LIMIT_BYTES) and no user input is evaluated.
 
-Budget jobs run in spawned worker processes, which import the main module again: a script
-of your own that calls ``serve`` or ``create_app(...).run`` must do so under
-``if __name__ == "__main__":`` (as ``fluxfence serve`` does).
+Pages are served by waitress (``workers`` threads); budgets are computed in a small pool of
+threads of the same process on fields opened once (app.state, app.jobs).  Each data file is
+resolved again whenever it is opened and must still lie inside the data folder.
 """
 
 from __future__ import annotations
 
 import logging
-import os
 import tempfile
 from pathlib import Path
 
@@ -68,7 +67,7 @@ def resolve_sources(paths=None, data_dir=None) -> list[dict]:
             found.append(candidate)
         for f in found:
             sources.append({"id": str(len(sources)), "label": str(f.relative_to(root)),
-                            "paths": [str(f.resolve())]})
+                            "paths": [str(f.resolve())], "root": str(root.resolve())})
         if not found and not sources:
             raise RequestError(f"No NetCDF (.nc) or Zarr (.zarr) fields under {str(root)!r}; "
                                "put the files there or name them on the command line.")
@@ -85,57 +84,39 @@ def resolve_sources(paths=None, data_dir=None) -> list[dict]:
     return sources
 
 
-def _spawning_manager(cache):
-    """A DiskcacheManager whose jobs start in a fresh *spawned* process.
-
-    The default forks the threaded web server; a fork taken while another thread holds a
-    lock (SQLite's, HDF5's, a logging handler's) leaves the child waiting on it for ever.
-    A spawned worker starts clean and reads the settings through callbacks.configure.
-    """
-    from dash import DiskcacheManager
-
-    class SpawningDiskcacheManager(DiskcacheManager):
-        def call_job_fn(self, key, job_fn, args, context):
-            from multiprocess import get_context
-
-            process = get_context("spawn").Process(
-                target=job_fn, args=(key, self._make_progress_key(key), args, context),
-                daemon=True,
-            )
-            process.start()
-            return process.pid
-
-    return SpawningDiskcacheManager(cache)
-
-
 def _initial_regions(sources) -> list:
     """The sample event opens with its invented basin selected, so the first screen has a budget."""
     from budget.region import load_region
 
-    from .callbacks import _record
+    from .regions import record
 
     basin = sources[0].get("basin") if sources else None
     if not basin:
         return []
     region = load_region(path=basin)
-    return [_record(region, "r1", "Sample basin (invented)")]
+    return [record(region, "r1", "Sample basin (invented)")]
 
 
-def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
-    """Build the dashboard for the given fields (the sample event when none are given)."""
-    import diskcache
+def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) -> dash.Dash:
+    """Build the dashboard for the given fields (the sample event when none are given).
 
-    from . import callbacks
+    ``job_threads``: how many budgets are computed at once (threads of this process).
+    """
+    from . import callbacks, regions  # noqa: F401 - registers the callbacks
     from .layout import build_layout
+    from .state import Settings, Source, configure
 
     sources = resolve_sources(paths, data_dir)
     if cache_dir is None:
         cache_dir = tempfile.mkdtemp(prefix="fluxfence-cache-")
     cache_dir = Path(cache_dir)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    manager = _spawning_manager(diskcache.Cache(str(cache_dir / "jobs")))
-    callbacks.configure(sources=sources, cache_dir=cache_dir, assets=ASSETS,
-                        upload_limit=UPLOAD_LIMIT_BYTES)
+    configure(Settings(
+        sources=tuple(Source(id=s["id"], label=s["label"], paths=tuple(s["paths"]),
+                             root=s.get("root"), basin=s.get("basin")) for s in sources),
+        cache_dir=cache_dir, assets=ASSETS, upload_limit=UPLOAD_LIMIT_BYTES,
+        job_threads=job_threads,
+    ))
 
     app = dash.Dash(
         __name__,
@@ -144,7 +125,6 @@ def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
         serve_locally=True,
         title="Fluxfence",
         update_title=None,
-        background_callback_manager=manager,
         suppress_callback_exceptions=False,
     )
     app.server.config["MAX_CONTENT_LENGTH"] = REQUEST_LIMIT_BYTES
@@ -156,10 +136,24 @@ def create_app(paths=None, data_dir=None, cache_dir=None) -> dash.Dash:
     return app
 
 
-def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050) -> None:
-    """Start the dashboard and block; debug stays off."""
+def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050, workers: int = 8,
+          job_threads: int = 2) -> None:
+    """Serve the dashboard through waitress (``workers`` request threads) and block.
+
+    Debug is off; the bind address defaults to this machine only.
+    """
+    import waitress
+
     logging.basicConfig(level=logging.INFO, format="%(message)s")
-    app = create_app(paths=paths, data_dir=data_dir)
+    if int(workers) < 1 or int(job_threads) < 1:
+        raise RequestError("--workers and --job-threads take a whole number of at least 1.")
+    app = create_app(paths=paths, data_dir=data_dir, job_threads=job_threads)
+    from .state import current
+
+    current().warm()  # open the first field set now, not when the first page asks
     if host not in ("127.0.0.1", "localhost", "::1"):
         print("note: serving beyond this machine; anyone who can reach it can use it.")
-    app.run(host=host, port=port, debug=False, dev_tools_hot_reload=False)
+    print(f"Fluxfence dashboard on http://{host}:{port} ({workers} request threads, "
+          f"{job_threads} budget threads); Ctrl-C stops it.")
+    waitress.serve(app.server, host=host, port=int(port), threads=int(workers),
+                   ident="fluxfence", max_request_body_size=REQUEST_LIMIT_BYTES)

@@ -62,10 +62,8 @@ def _parts(lon, lat):
     LON, LAT = np.meshgrid(lon, lat)
     # keep the poles finite: the analytic flux divides by cos φ
     LATc = np.clip(LAT, -89.999, 89.999)
-    qu_d, qv_d = analytic.flux(LON, LATc, rotational=False)
-    qu_a, qv_a = analytic.flux(LON, LATc, rotational=True)
     w = 20.0 + 10.0 * np.cos(np.radians(LAT)) ** 2
-    return qu_d, qv_d, qu_a - qu_d, qv_a - qv_d, w
+    return (*analytic.flux_parts(LON, LATc), w)
 
 
 def column_file(nt: int, res: float = 0.25, name: str | None = None) -> Path:

@@ -25,7 +25,7 @@ dry_air_tendency                   kg m-2 s-1  its tendency (centred differences
 dry_air_import                     kg s-1      dry-air mass import through the boundary
 dry_air_convergence                kg m-2 s-1  area-mean dry-air convergence (primary method)
 dry_air_residual                   kg m-2 s-1  dry_air_tendency − dry_air_convergence (files' winds)
-dry_air_residual_pressure          hPa day-1   the same as a surface-pressure tendency
+dry_air_residual_pressure          Pa s-1      the same as a surface-pressure tendency
 mass_correction_speed              m s-1       uniform outward boundary-normal correction wind c
 mass_correction_convergence        kg m-2 s-1  change of vapour convergence (and P−E): −c∮W dl / A
 vapour_import_uncorrected          kg s-1      import from the files' winds
@@ -46,7 +46,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import xarray as xr
 
-from . import mass, observed, terms
+from . import mass, observed, terms, units
 from .constants import SECONDS_PER_DAY
 from .errors import RequestError
 from .options import ClosureOptions
@@ -258,6 +258,7 @@ def close(fields, st, times, sums, vapour: VapourTerms, method: str, opts: Closu
     summary["mass_correction"] = state.sentence
     summary["mass_correction_applied"] = "on" if state.applied else "off"
     summary["variables_used"] = {**dict(getattr(fields, "roles", {})), **dict(getattr(fields, "extra_roles", {}))}
+    summary["flagged_values"] = {k: int(n) for k, n in sorted(sums.flagged.items())}
     out.attrs.update(state.attrs())
     out.attrs["mass_correction_method"] = (
         "regional barotropic correction (Trenberth 1991): one uniform outward boundary-normal wind "
@@ -299,8 +300,8 @@ def _dry_air(out: Closed, st, times, sums, method, summary):
     })
     summary.update({
         "mean_dry_air_residual_kg_m2_s": _mean(resid),
-        "mean_dry_air_residual_hpa_day": _mean(pressure),
-        "mean_abs_dry_air_residual_hpa_day": _mean(np.abs(pressure)),
+        "mean_dry_air_residual_hpa_day": float(units.pa_s_to_hpa_day(_mean(pressure))),
+        "mean_abs_dry_air_residual_hpa_day": float(units.pa_s_to_hpa_day(_mean(np.abs(pressure)))),
         "mean_mass_correction_speed_m_s": _mean(c),
         "max_abs_mass_correction_speed_m_s": float(np.nanmax(np.abs(c))) if c.size else float("nan"),
     })

@@ -13,7 +13,7 @@ close:  ∂μ/∂t + ∇·F = 0, with
 integrated over the same layers as the vapour (budget.vertical).  Over a region of area A the
 *dry-air residual*
 
-    R = dμ̄/dt − (dry-air convergence)    kg m-2 s-1, also as hPa/day: R · g · 86400 / 100
+    R = dμ̄/dt − (dry-air convergence)    kg m-2 s-1, also as a pressure tendency R · g (Pa s-1)
 
 is zero for mass-consistent fields.
 
@@ -49,11 +49,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .constants import SECONDS_PER_DAY, STANDARD_GRAVITY
+from .constants import STANDARD_GRAVITY
 from .vertical import column_integral
-
-#: Pa per hPa.
-_PA_PER_HPA = 100.0
 
 
 def dry_column(q: np.ndarray, u: np.ndarray, v: np.ndarray, dp: np.ndarray, level_axis: int = 1, vapour=None):
@@ -80,8 +77,9 @@ def dry_column_from_surface_pressure(ps, w, p_top: float = 0.0):
 
 
 def residual_as_pressure_tendency(residual_kg_m2_s):
-    """A column-mass rate (kg m-2 s-1) as the equivalent surface-pressure tendency in hPa/day."""
-    return np.asarray(residual_kg_m2_s, float) * STANDARD_GRAVITY * SECONDS_PER_DAY / _PA_PER_HPA
+    """A column-mass rate (kg m-2 s-1) as the equivalent surface-pressure tendency in Pa s-1
+    (hydrostatic: 1 kg m-2 of air weighs g Pa); budget.units shows it in hPa/day."""
+    return np.asarray(residual_kg_m2_s, float) * STANDARD_GRAVITY
 
 
 def correction_speed(dry_import_kg_s, dry_tendency_kg_m2_s, area_m2: float, boundary_mass_kg_m):

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import RequestError
-from .units import RATE_UNITS, convert, kg_m2_to_mm, transport_to_rate
+from .units import RATE_UNITS, convert, kg_m2_to_mm, pa_s_to_hpa_day, transport_to_rate
 
 #: Families of terms (what a screen groups or switches between).
 FAMILIES = ("vapour", "dry_air", "correction", "total_water", "observed", "edge", "profile", "attribution")
@@ -39,7 +39,7 @@ UNIT_LABELS = {
 }
 
 #: Display units that are the SI units themselves under another spelling (no conversion).
-_SAME = {"kg/s": "kg s-1", "m/s": "m s-1", "hPa/day": "hPa day-1"}
+_SAME = {"kg/s": "kg s-1", "m/s": "m s-1"}
 
 
 @dataclass(frozen=True)
@@ -152,8 +152,8 @@ TERMS: tuple[Term, ...] = (
     Term("dry_air_residual", _RATE, "dry-air budget residual (tendency minus convergence)", "dry_air",
          "Dry-air residual", method="zero for mass-consistent winds; before any correction",
          columns=(_c("dry_air_residual_kg_m2_s", "kg m-2 s-1"),)),
-    Term("dry_air_residual_pressure", "hPa day-1", "dry-air budget residual as a surface-pressure tendency",
-         "dry_air", "Dry-air residual", method="residual x g x 86400 / 100",
+    Term("dry_air_residual_pressure", "Pa s-1", "dry-air budget residual as a surface-pressure tendency",
+         "dry_air", "Dry-air residual", method="residual x g (hydrostatic)",
          columns=(_c("dry_air_residual_hpa_day", "hPa/day", True),)),
     # precipitation and evaporation from the files (budget.observed)
     Term("precipitation", _RATE, "area-mean precipitation from the files", "observed", "Precipitation in the files",
@@ -278,6 +278,8 @@ def to_display(t: Term | str, values, unit: str, area_m2: float | None = None) -
         return v
     if t.units == _MASS and unit == "mm":
         return kg_m2_to_mm(v)
+    if t.units == "Pa s-1" and unit == "hPa/day":
+        return pa_s_to_hpa_day(v)
     if unit in RATE_UNITS and t.units in (_RATE, _TRANSPORT):
         if area_m2 is None:
             raise RequestError(f"Showing {t.name} in {unit} needs the region's area.")

@@ -45,6 +45,17 @@ def flux(lon_deg, lat_deg, rotational=True):
     return qu, qv
 
 
+def flux_parts(lon_deg, lat_deg):
+    """(Qu, Qv) of the divergent part ∇χ and of the rotational part k × ∇ψ, separately.
+
+    A time-varying test field is g(t)·divergent + h(t)·rotational: its net import through any
+    closed boundary is g(t) times that of ∇χ, whatever h(t) does.
+    """
+    qu_d, qv_d = flux(lon_deg, lat_deg, rotational=False)
+    qu_a, qv_a = flux(lon_deg, lat_deg, rotational=True)
+    return qu_d, qv_d, qu_a - qu_d, qv_a - qv_d
+
+
 def divergence(lon_deg, lat_deg):
     """∇²χ, kg m-2 s-1: l(l+1) = 6 for the l=2 terms, 2 for the l=1 term."""
     t1, t2, t3 = chi_terms(np.radians(lon_deg), np.radians(lat_deg))

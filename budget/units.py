@@ -192,6 +192,15 @@ def transport_to_rate(values_kg_s, area_m2: float):
     return np.asarray(values_kg_s, dtype=float) / area_m2
 
 
+#: Pa per hPa.
+PA_PER_HPA = 100.0
+
+
+def pa_s_to_hpa_day(values):
+    """A pressure tendency in Pa s-1 (SI, inside the engine) as hPa/day for display."""
+    return np.asarray(values, dtype=float) * SECONDS_PER_DAY / PA_PER_HPA
+
+
 def kg_m2_to_mm(values):
     """Column water mass (kg m-2) as liquid-water depth (mm): 1 kg m-2 = 1 mm at ρw = 1000."""
     return np.asarray(values, dtype=float) / KG_M2_PER_MM

@@ -7,6 +7,7 @@ sentence, for level and column inputs and for each setting.
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
 import budget
@@ -53,3 +54,14 @@ def test_switching_off_keeps_the_uncorrected_numbers(levels):
     # is still reported beside it (the same number in both runs)
     assert (off["p_minus_e"].values[1:-1] == off["p_minus_e_uncorrected"].values[1:-1]).all()
     assert (on["p_minus_e_uncorrected"].values == off["p_minus_e_uncorrected"].values).all()
+
+
+def test_the_dataset_is_si_inside(levels):
+    # DESIGN: SI inside (Pa, m s-1, kg kg-1, kg m-1 s-1, kg m-2); display units only at the edges
+    ds = budget.compute(levels, region_from_bbox(*REGION))
+    for name, da in ds.data_vars.items():
+        assert "hPa" not in da.attrs["units"] and "day" not in da.attrs["units"], (name, da.attrs["units"])
+    # the dry-air residual as a pressure tendency is g times the mass residual (hydrostatic)
+    from budget.constants import STANDARD_GRAVITY
+
+    np.testing.assert_allclose(ds["dry_air_residual_pressure"].values, ds["dry_air_residual"].values * STANDARD_GRAVITY, rtol=1e-15)

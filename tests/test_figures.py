@@ -195,7 +195,7 @@ def test_period_rows_mean_and_trapezoid_total():
     # steps are 6 h = 0.25 day apart: trapezoid total in mm
     assert pme["total_value"] == pytest.approx(0.25 * (rate[0] / 2 + rate[1] + rate[2] / 2))
     assert pme["mean"].endswith("mm/day") and pme["total"].endswith("mm")
-    w = rows["Precipitable water (start → end)"]
+    w = rows["Precipitable water (mean; start → end)"]
     assert w["total_value"] == pytest.approx(2.0)
 
     rows = {r["term"]: r for r in figures.period_rows(b, "kg/s")}
@@ -221,23 +221,31 @@ def test_profile_numbers_vertices_of_a_many_sided_polygon():
     n = 30
     b = b.assign_coords(vertex_distance=("vertex", np.linspace(0, 900e3, n)),
                         edge=("edge", [f"edge {i + 1}" for i in range(n)]))
-    fig = figures.profile_figure(b, 0)
+    fig = figures.profile_figure(b, 0, name="Thirty sides", time_label="2031-03-01 00:00 UTC")
     labels = [a.text for a in fig.layout.annotations]
-    # at most about a dozen labels, numbered along the boundary from 1
-    assert labels[0] == "1" and len(labels) <= 15
+    # edges named as in the edge table and on the map ("edge 7" → "7"), every k-th of many
+    assert labels[0] == "1" and len(labels) <= 16
     assert all(t.isdigit() for t in labels)
+    # the panel names its region and the time shown
+    assert "Thirty sides" in fig.layout.title.text and "2031-03-01 00:00" in fig.layout.title.text
 
 
 def test_numbers_for_the_table_are_readable():
+    # one format everywhere: 4 significant digits, thousands grouped, never an exponent
+    # (a display choice: common practice, no source)
     assert figures.number(12570.4) == "12,570"
-    assert figures.number(6.4412) == "6.44"
-    assert figures.number(0.1402) == "0.14"
+    assert figures.number(6.4412) == "6.441"
+    assert figures.number(0.1402) == "0.1402"
     assert figures.number(5.302e9) == "5,302,000,000"
-    assert figures.number(5.302e12) == "5.302e+12"
+    assert figures.number(1.982e13) == "19,820,000,000,000"
+    assert figures.number(-44_195_550) == "-44,200,000"
+    assert figures.number(0.000123456) == "0.0001235"
+    assert figures.number(2.0) == "2" and figures.number(0.0) == "0"
     assert figures.number(float("nan")) == "—"
+    assert "e" not in figures.number(3.3e-9)
 
 
-def test_edge_rows_mean_import_and_largest_first_for_many_edges():
+def test_edge_rows_mean_import_of_every_edge_in_boundary_order():
     b = _budget(nt=3)
     b["edge_import"] = (("time", "edge"), np.array([[1.0, -2.0, 3.0, 0.5]] * 3) * 1e7)
     rows = figures.edge_rows(b, "kg/s")
@@ -247,5 +255,10 @@ def test_edge_rows_mean_import_and_largest_first_for_many_edges():
     # in mm/day: the transport over the area × 86400 (CHECKS.md, conversions)
     mm = figures.edge_rows(b, "mm/day")
     assert mm[2]["mean_value"] == pytest.approx(3e7 / 1.2302e12 * 86400)
-    few = figures.edge_rows(b, "kg/s", limit=2)
-    assert [r["edge"] for r in few] == ["E", "N"]  # the two largest, in boundary order
+    # every edge is listed, however many (the table scrolls)
+    n = 30
+    many = b.drop_vars(["edge_import", "edge"]).assign_coords(
+        edge=("edge", [f"edge {i + 1}" for i in range(n)]))
+    many["edge_import"] = (("time", "edge"), np.ones((3, n)) * np.arange(n))
+    rows = figures.edge_rows(many, "kg/s")
+    assert [r["edge"] for r in rows] == [f"edge {i + 1}" for i in range(n)]

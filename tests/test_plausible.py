@@ -119,3 +119,48 @@ def test_column_inputs_refuse_a_fill_value(write_nc):
     col["w"][2, 10, 10] = 1e20
     with pytest.raises(FieldsError, match=r"'w'.*1e\+20.*fill value"):
         budget_of(write_nc(col, "column_fill.nc"))
+
+
+# -- the same cases through the command line: exit code, one line, no traceback --------------
+def _cli(*args):
+    import subprocess
+    import sys
+
+    return subprocess.run([sys.executable, "-m", "app.cli", *map(str, args)], capture_output=True, text=True, timeout=300)
+
+
+def _bad(case, ds):
+    bad = ds.copy(deep=True)
+    if case == "q_gkg":
+        bad["q"][2:] = bad["q"][2:] * 1000.0
+    elif case == "ps_hpa":
+        bad["ps"][2:] = bad["ps"][2:] / 100.0
+    elif case == "fill":
+        bad["u"][11, 3, 10, 10] = 9.999e20
+    elif case == "negative_q":
+        bad["q"][:] = -bad["q"]
+    return bad
+
+
+@pytest.mark.parametrize("case, key", [("q_gkg", "--units q=g/kg"), ("ps_hpa", "--units ps=hPa"),
+                                       ("fill", "unmarked fill value"), ("negative_q", "cannot be that negative")])
+def test_command_line_refuses_each_case_in_one_line(case, key, small_levels, write_nc, tmp_path):
+    path = write_nc(_bad(case, small_levels), f"{case}.nc")
+    before = path.read_bytes()
+    out = tmp_path / "budget.csv"
+    r = _cli("run", path, "--bbox", ",".join(f"{x:g}" for x in REGION), "--out", out, "--quiet")
+    assert r.returncode == 3, r.stderr  # FieldsError's exit code (budget/errors.py)
+    lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1 and key in lines[0], r.stderr
+    assert "Traceback" not in r.stderr
+    assert not out.exists() and path.read_bytes() == before  # nothing written, the input untouched
+
+
+def test_command_line_summary_counts_flagged_values(small_levels, write_nc, tmp_path):
+    odd = small_levels.copy(deep=True)
+    odd["q"][4, 0, 10, 5:10] = -5e-5
+    path = write_nc(odd, "small_negative.nc")
+    r = _cli("run", path, "--bbox", ",".join(f"{x:g}" for x in REGION), "--out", tmp_path / "b.csv")
+    assert r.returncode == 0, r.stderr
+    assert "slightly negative" in r.stderr  # the warning
+    assert any(ln.startswith("flagged values") and "q: 5" in ln for ln in r.stdout.splitlines()), r.stdout

@@ -48,16 +48,15 @@ def write_column_file(path, nt, res=1.0, time_chunk=5):
     lon = np.arange(w_, e_ + res / 2, res)
     lat = np.arange(s_, n_ + res / 2, res)
     LON, LAT = np.meshgrid(lon, lat)
-    qu_d, qv_d = analytic.flux(LON, LAT, rotational=False)
-    qu_a, qv_a = analytic.flux(LON, LAT, rotational=True)
+    qu_d, qv_d, qu_r, qv_r = analytic.flux_parts(LON, LAT)
     n = np.arange(nt)
     g, h = g_of_t(n)[:, None, None], h_of_t(n)[:, None, None]
     w = (20.0 + 10.0 * np.cos(np.radians(LAT)) ** 2) * (1 + 0.02 * np.sin(n / 3.0))[:, None, None]
     times = np.datetime64("2031-05-01T00:00", "ns") + n * np.timedelta64(1, "h")
     ds = xr.Dataset(
         {
-            "qu": (("time", "lat", "lon"), (g * qu_d + h * (qu_a - qu_d)).astype("f4"), {"units": "kg m-1 s-1"}),
-            "qv": (("time", "lat", "lon"), (g * qv_d + h * (qv_a - qv_d)).astype("f4"), {"units": "kg m-1 s-1"}),
+            "qu": (("time", "lat", "lon"), (g * qu_d + h * qu_r).astype("f4"), {"units": "kg m-1 s-1"}),
+            "qv": (("time", "lat", "lon"), (g * qv_d + h * qv_r).astype("f4"), {"units": "kg m-1 s-1"}),
             "w": (("time", "lat", "lon"), w.astype("f4"), {"units": "kg m-2"}),
         },
         coords={"time": times, "lat": ("lat", lat, {"units": "degrees_north"}), "lon": ("lon", lon, {"units": "degrees_east"})},

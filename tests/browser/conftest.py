@@ -54,6 +54,9 @@ def dashboard(tmp_path_factory):
 
     cache = tmp_path_factory.mktemp("dash-cache")
     app = create_app(cache_dir=cache)
+    from app.state import current
+
+    current().fields("0")  # the sample's fields open before the first page (as serve warms)
     server = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
@@ -83,7 +86,7 @@ def app_page(page, dashboard, shots_dir, request):
     """The dashboard opened and its first map drawn; a screenshot is saved after the test."""
     watch = Watch(page, dashboard["url"])
     page.goto(dashboard["url"] + "/")
-    page.wait_for_selector("#map .heatmaplayer image, #map .hm image", timeout=30_000)
+    page.wait_for_selector("#map .heatmaplayer image, #map .hm image", timeout=90_000)
     page.wait_for_function("document.querySelector('#time-label').textContent.length > 0")
     # the sample opens with its basin selected: let that first job finish (cached after the
     # first test), so a cold start's worker does not race the test's own requests

@@ -1,0 +1,205 @@
+"""The budget panels in headless Chromium: never a stale number, Cancel, downloads while a
+budget computes, the full edge table, the budget selector.
+
+Every test (through the app_page fixture) also checks that the page logged no console error
+and made no request beyond 127.0.0.1, and saves a screenshot.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+import pytest
+
+from tests.browser.conftest import graph_traces, wait_for_series
+
+pytestmark = pytest.mark.browser
+
+PANEL_LOG = """() => {
+    window.__panels = [];
+    const title = (id) => {
+        const gd = document.querySelector('#' + id + ' .js-plotly-plot');
+        const t = gd && gd.layout && gd.layout.title;
+        return (t && (t.text || t)) || '';
+    };
+    const pme = () => {
+        const gd = document.querySelector('#series .js-plotly-plot');
+        const t = gd && gd._fullData && gd._fullData.find(t => t.name === 'P − E');
+        return t ? Array.from(t.y).slice(0, 3) : null;
+    };
+    window.__panelTimer = setInterval(() => {
+        const cap = document.querySelector('#budget-table caption');
+        window.__panels.push({t: performance.now(), series: String(title('series')),
+            profile: String(title('profile')), curtain: String(title('curtain')),
+            table: cap ? cap.textContent : '',
+            message: document.querySelector('#budget-message').textContent,
+            pme: pme()});
+    }, 15);
+}"""
+
+
+def _type_box(page, west, south, east, north):
+    if not page.is_visible("#box-west"):
+        page.click("#adder-box summary")
+    for field, value in (("west", west), ("south", south), ("east", east), ("north", north)):
+        page.fill(f"#box-{field}", str(value))
+    page.click("#box-add")
+
+
+def _engine(sample, bbox, **kw):
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_bbox
+
+    return compute(open_fields([str(sample.levels)]), region_from_bbox(*bbox), **kw)
+
+
+@pytest.fixture(scope="module")
+def sample():
+    from sample_fields import ensure_sample
+
+    return ensure_sample()
+
+
+def test_no_panel_shows_the_old_region_once_the_new_one_is_chosen(app_page, sample):
+    page = app_page
+    old = "Sample basin"
+    new = "Typed box 1"
+    expected = _engine(sample, (-2, 39, 7, 47))["p_minus_e"].values * 86400  # mm/day
+    page.evaluate(PANEL_LOG)
+    _type_box(page, -2, 39, 7, 47)
+    wait_for_series(page, new)
+    page.wait_for_timeout(300)
+    log = page.evaluate("() => { clearInterval(window.__panelTimer); return window.__panels; }")
+    assert log, "the panel log is empty"
+    # 1. no sample claims the new region's name with other numbers
+    for entry in log:
+        if new in entry["series"] and entry["pme"]:
+            np.testing.assert_allclose(entry["pme"], expected[:3], rtol=1e-9)
+    # 2. once the new series is there, no panel, table or message names the old region
+    first = next(i for i, e in enumerate(log) if new in e["series"] and e["pme"])
+    for entry in log[first:]:
+        for panel in ("series", "profile", "curtain", "table", "message"):
+            assert old not in entry[panel], (panel, entry)
+    final = log[-1]
+    for panel in ("series", "profile", "curtain", "table"):
+        assert new in final[panel], (panel, final)
+    # the profile and curtain name the time they show
+    assert "UTC" in final["profile"] and "UTC" in final["curtain"]
+
+
+@pytest.fixture
+def paced_engine(monkeypatch):
+    """The engine as usual, but each job first reports 30 steps 0.25 s apart, so that a
+    person (or this test) can act while it runs; Cancel stops it at the next step."""
+    import budget.ledger
+
+    real = budget.ledger.compute
+
+    def paced(*args, progress=None, **kw):
+        for k in range(30):
+            if progress is not None:
+                progress(k, 30)
+            time.sleep(0.25)
+        return real(*args, progress=progress, **kw)
+
+    monkeypatch.setattr(budget.ledger, "compute", paced)
+    return real
+
+
+def test_cancel_and_downloads_while_a_budget_computes(app_page, sample, paced_engine,
+                                                     monkeypatch):
+    page = app_page
+    name = "Typed box 1"
+    _type_box(page, 0, 40, 6, 45)
+    page.wait_for_selector("#budget-running", state="visible", timeout=15_000)
+    # the progress bar counts real steps of this region's job
+    page.wait_for_function(
+        "document.querySelector('#budget-progress-text').textContent.includes('of 30')",
+        timeout=15_000)
+    text = page.inner_text("#budget-progress-text")
+    assert text.startswith(name)
+    # every panel says it is computing, for this region; nothing of the basin is left
+    series_title = page.evaluate(
+        "() => document.querySelector('#series .js-plotly-plot').layout.annotations[0].text")
+    assert f"Computing the budget of {name}" in series_title
+    assert "Sample basin" not in page.inner_text("#budget-card")
+    # downloads are visibly disabled, with the reason
+    assert page.is_disabled("#dl-csv") and page.is_disabled("#dl-nc")
+    assert f"Downloads wait for the budget of {name}" in page.inner_text("#dl-reason")
+
+    page.click("#budget-cancel")
+    page.wait_for_selector("#budget-again", state="visible", timeout=10_000)
+    assert page.is_hidden("#budget-running")
+    assert f"Cancelled: the budget of {name} was not computed" in page.inner_text(
+        "#budget-message")
+    from app import state
+
+    # the paced job (30 steps) stopped part-way (earlier tests may have their own "Typed box 1")
+    paced = [j for j in state.current().jobs._jobs.values() if j.label == name and j.total == 30]
+    assert len(paced) == 1 and paced[0].status == "cancelled" and paced[0].done < 30
+
+    # started again (the engine at its normal pace) it computes and the downloads open
+    import budget.ledger
+
+    monkeypatch.setattr(budget.ledger, "compute", paced_engine)
+    page.click("#budget-again")
+    wait_for_series(page, name)
+    page.wait_for_function("!document.querySelector('#dl-csv').disabled", timeout=10_000)
+    with page.expect_download() as info:
+        page.click("#dl-csv")
+    assert info.value.suggested_filename == "typed_box_1_boundary.csv"
+
+
+def test_the_edge_table_lists_every_edge_and_the_map_numbers_them(app_page, sample):
+    from budget.region import load_region
+
+    page = app_page
+    edges = load_region(path=sample.basin).edge_names
+    assert len(edges) == 15
+    page.wait_for_selector("#budget-table .edge-scroll table")
+    rows = page.locator("#budget-table .edge-scroll tbody tr")
+    assert rows.count() == len(edges)
+    assert [rows.nth(i).locator("td").first.inner_text() for i in range(len(edges))] == edges
+    # the list scrolls inside the card and its last edge can be scrolled to
+    box = page.evaluate("""() => { const d = document.querySelector('#budget-table .edge-scroll');
+        return {scroll: d.scrollHeight, client: d.clientHeight}; }""")
+    assert box["scroll"] > box["client"]
+    rows.nth(len(edges) - 1).scroll_into_view_if_needed()
+    assert rows.nth(len(edges) - 1).is_visible()
+    # the map labels the same edges on the active region's outline
+    labels = next(t for t in page.evaluate("""() => {
+        const gd = document.querySelector('#map .js-plotly-plot');
+        return gd._fullData.map(t => ({name: t.name, text: t.text ? Array.from(t.text) : []}));
+    }""") if t["name"] == "edge numbers")
+    assert labels["text"] == [str(i + 1) for i in range(15)]
+
+
+def test_the_budget_selector_shows_the_dry_air_mass_budget(app_page, sample):
+    import budget
+    from budget.constants import STANDARD_GRAVITY
+
+    page = app_page
+    ds = budget.compute(budget.open_fields(sample.levels), budget.load_region(path=sample.basin))
+    # the sample holds no cloud water: total water cannot be chosen
+    assert page.is_disabled("#budget-kind input[value=total]")
+    page.get_by_text("Dry-air mass", exact=True).click()
+    page.wait_for_function(
+        "document.querySelector('#series .js-plotly-plot').layout.title.text"
+        ".includes('Dry-air mass budget')", timeout=15_000)
+    resid = next(t for t in graph_traces(page, "series")
+                 if t["name"] == "Dry-air residual")
+    # a column-mass rate R (kg m-2 s-1) is the surface-pressure tendency R·g (hydrostatic
+    # balance), standard gravity 9.80665 m s-2 (ISO 80000-3); in hPa/day × 86400 / 100
+    assert STANDARD_GRAVITY == 9.80665
+    np.testing.assert_allclose(resid["y"], ds["dry_air_residual"].values * 9.80665 * 864,
+                               rtol=1e-9, atol=1e-12)
+    table = page.inner_text("#budget-table")
+    for term in ("Net dry-air import", "Dry-air import as surface-pressure change",
+                 "Dry-air convergence", "Surface-pressure tendency", "Dry-air residual",
+                 "Mass-correction speed (outward)"):
+        assert term in table
+    assert "kg/s" in table and "hPa/day" in table and "cm/s" in table
+    assert "e+" not in table  # one number format: grouped digits, never an exponent
+    assert "Sample basin" in page.inner_text("#budget-table caption")
