@@ -17,6 +17,7 @@ from app import cli_records
 from budget import __version__
 from budget.catalogue import var_help
 from budget.errors import FluxfenceError, RequestError
+from budget.options import ClosureOptions
 
 CAUTION = (
     "Caution: reanalysis budgets are estimates with known imbalances; they are not a substitute "
@@ -109,8 +110,9 @@ def cmd_run(args) -> int:
         raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
     if args.region and args.bbox:
         raise RequestError("Give either --region or --bbox, not both.")
-    if args.each_feature:
-        return _run_each_feature(args)
+    if args.each_feature or cli_records.is_many(args):  # every feature of --region in one pass
+        return cli_records.run_many(args, lambda: _open_fields(args), ClosureOptions(**_closure_options(args)),
+                                    _Progress(not args.quiet), CAUTION)
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
@@ -147,73 +149,10 @@ def cmd_run(args) -> int:
     return 0
 
 
-def _slug(name: str) -> str:
-    import re
-
-    return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("_") or "region"
-
-
-def _run_each_feature(args) -> int:
-    """One budget per feature of a region file: OUT/<name>.csv each, and OUT/summary.csv."""
-    import pandas as pd
-
-    from budget import terms
-    from budget.export import to_frame, write, write_frame
+def _open_fields(args):
     from budget.fields import open_fields
-    from budget.ledger import compute
-    from budget.region import list_features, load_region
-    from budget.stencil import Grid, compile_stencil
 
-    if cli_records.wanted(args):
-        raise RequestError("--aggregate, --climatology and --discharge work on one budget; leave out --each-feature.")
-    if not args.region:
-        raise RequestError("--each-feature needs --region FILE with several features (GeoJSON or shapefile).")
-    if args.feature:
-        raise RequestError("Give either --each-feature or --feature, not both.")
-    folder = Path(args.out)
-    if folder.suffix.lower() in (".csv", ".nc"):
-        raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(folder)!r}.")
-    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
-    grid = Grid.from_fields(fields)
-    # check every region before computing any, so a bad feature costs nothing
-    jobs = []
-    for feat in list_features(args.region):
-        label = feat.get("name") or f"feature {feat['index']}"
-        try:
-            region = load_region(path=args.region, feature=feat["index"], great_circle=args.great_circle, name=label)
-            stencil = compile_stencil(region, grid)
-        except FluxfenceError as exc:
-            raise type(exc)(f"Feature {feat['index']} ({label}): {exc}") from None
-        target = folder / f"{feat['index']:03d}_{_slug(label)}.csv"
-        if target.exists() and not args.overwrite:
-            raise RequestError(f"{str(target)!r} exists already; choose another --out folder or pass --overwrite.")
-        jobs.append((label, region, stencil, target))
-    folder.mkdir(parents=True, exist_ok=True)
-    summary_path = folder / "summary.csv"
-    if summary_path.exists() and not args.overwrite:
-        raise RequestError(f"{str(summary_path)!r} exists already; choose another --out folder or pass --overwrite.")
-    rows = []
-    for k, (label, region, stencil, target) in enumerate(jobs, 1):
-        if not args.quiet:
-            print(f"[{k}/{len(jobs)}] {label}", file=sys.stderr)
-        ds = compute(fields, region, method=args.method, stencil=stencil, progress=_Progress(not args.quiet),
-                     scheduler=args.scheduler, resume=_partial_dir(target), **_closure_options(args))
-        write(ds, target)
-        df = to_frame(ds)
-        row = {"region": label, "file": target.name, "area_km2": ds.attrs["region_area_m2"] / 1e6,
-               "first_time": df["time"].iloc[0], "last_time": df["time"].iloc[-1], "time_steps": len(df)}
-        for col, _ in terms.summary_columns():
-            if col.name in df:
-                row[f"mean_{col.name}"] = df[col.name].mean()
-        row["mass_correction"] = ds.attrs.get("mass_correction", "")
-        rows.append(row)
-    write_frame(pd.DataFrame(rows), summary_path)
-    if not args.quiet:
-        pme = f"mean_{terms.term('p_minus_e').columns[0].name}"
-        print(pd.DataFrame(rows)[["region", "area_km2"] + [c for c in (pme,) if c in rows[0]]].to_string(index=False))
-        print(f"wrote {len(jobs)} budgets and {summary_path}")
-        print(CAUTION)
-    return 0
+    return open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
 
 
 def cmd_sample(args) -> int:
@@ -273,6 +212,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
     cli_records.add_options(r)
+    cli_records.add_region_options(r)
     r.set_defaults(func=cmd_run)
 
     s = sub.add_parser("serve", help="start the dashboard (the invented sample event when no fields are given)")

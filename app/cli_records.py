@@ -95,3 +95,109 @@ def write_tables(args, ds, paths: dict) -> list[Path]:
     if written and not args.quiet:
         print(f"periods: {INTEGRATION_RULE}", file=sys.stderr)
     return written
+
+
+# -- many regions in one pass ------------------------------------------------------------------
+def add_region_options(r) -> None:
+    """Options for region files with several features (budget.multi)."""
+    g = r.add_argument_group("many regions")
+    g.add_argument("--id-property", metavar="NAME", help="feature property holding each region's id (default: name, else id, else the feature's index)")
+    g.add_argument("--skip-invalid", action="store_true", help="compute the valid features of --region and name the invalid ones instead of stopping")
+
+
+def named_regions(args) -> tuple[list, list]:
+    """(id, Region) for every feature of --region, and a label naming each in messages; invalid ones refused or, with --skip-invalid,
+    reported on stderr and left out."""
+    from budget.region import load_regions
+
+    rs = load_regions(args.region, id_property=args.id_property, great_circle=args.great_circle)
+    for w in rs.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    if not args.skip_invalid:
+        rs.raise_if_invalid()
+    for p in rs.problems:
+        print(f"skipped feature '{p.id}': {p.message}", file=sys.stderr)
+    if not rs.regions:
+        raise RequestError(f"No feature of {rs.source} is a valid region; fix the file.")
+    return [(r.id, r.region) for r in rs.regions], [f"Feature {r.index} ({r.id})" for r in rs.regions]
+
+
+def is_many(args) -> bool:
+    """True when --region holds several features and --feature does not pick one."""
+    if not args.region or args.feature is not None:
+        return False
+    from budget.region import load_regions
+
+    rs = load_regions(args.region, id_property=args.id_property, great_circle=args.great_circle)
+    return len(rs.regions) + len(rs.problems) > 1
+
+
+def _slug(name: str) -> str:
+    import re
+
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("_") or "region"
+
+
+def run_many(args, open_fields, closure, progress, caution: str) -> int:
+    """Every feature of --region from one pass over the fields.
+
+    Without --each-feature: one long table (``time``, ``region``, columns) in --out (.csv), or
+    the budgets with a ``region`` dimension (.nc); --aggregate and --climatology work per
+    region. With --each-feature: --out is a folder of one CSV per region plus summary.csv.
+    """
+
+    from budget import multi, terms
+    from budget.export import write, write_frame
+
+    if args.discharge:
+        raise RequestError("--discharge compares one basin with its river; pick the basin with --feature.")
+    out = Path(args.out)
+    regions, labels = named_regions(args)
+    ids = [rid for rid, _ in regions]
+    if args.each_feature:
+        if out.suffix.lower() in (".csv", ".nc"):
+            raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(out)!r}.")
+        if wanted(args):
+            raise RequestError("--aggregate and --climatology write one table for all regions; leave out --each-feature.")
+        files = [out / f"{k:03d}_{_slug(rid)}.csv" for k, rid in enumerate(ids)] + [out / "summary.csv"]
+        tables = {}
+    else:
+        if out.suffix.lower() not in (".csv", ".nc"):
+            raise RequestError(f"Cannot tell the output format of {str(out)!r}; end the name in .csv (one long table) or .nc.")
+        tables = targets(args, out) if wanted(args) else {}
+        files = [out] + list(tables.values())
+    for f in files:
+        if f.exists() and not args.overwrite:
+            raise RequestError(f"{str(f)!r} exists already; choose another --out or pass --overwrite.")
+    fields = open_fields()
+    stencils = multi.compile_all(fields, regions, labels)  # every region checked before computing
+    for w in fields.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    budgets = multi.compute_each(fields, regions, method=args.method, progress=progress, scheduler=args.scheduler,
+                                 closure=closure, stencils=stencils)
+    for w in multi.warnings_of(budgets, ids):
+        print(f"warning: {w}", file=sys.stderr)
+    if args.each_feature:
+        out.mkdir(parents=True, exist_ok=True)
+        for b, f in zip(budgets, files):
+            write(b, f)
+    stacked = multi.stack(budgets, ids) if (not args.each_feature and (out.suffix.lower() == ".nc" or args.netcdf or tables)) else None
+    if not args.each_feature and "periods" not in tables:
+        if out.suffix.lower() == ".nc":
+            write(stacked, out)
+        else:
+            write_frame(multi.to_long_frame(budgets, ids), out)
+    if args.netcdf and stacked is not None:
+        write(stacked, args.netcdf)
+    if tables:
+        write_tables(args, stacked, tables)
+    summary = multi.summary_frame(budgets, ids)
+    if args.each_feature:
+        summary.insert(1, "file", [f.name for f in files[:-1]])
+        write_frame(summary, files[-1])
+    if not args.quiet:
+        pme = f"mean_{terms.term('p_minus_e').columns[0].name}"
+        print(summary[["region", "area_km2"] + [c for c in (pme,) if c in summary]].to_string(index=False))
+        print(f"wrote {len(budgets)} budgets in one pass: " + (f"{out}/ and summary.csv" if args.each_feature else str(out)))
+        print(caution)
+    return 0

@@ -18,6 +18,7 @@ import xarray as xr
 from budget.errors import RequestError
 
 MAP_STEP_LIMIT = 240  # a period-mean map averages at most this many evenly spaced steps
+FRAME_LIMIT = 1500  # an animation of more steps than this is refused: narrow the window
 PROFILE_STEP_LIMIT = 2000  # per-level boundary fluxes (the height curtain) kept up to this many steps
 NEEDS_MAP = ("map", "report")
 
@@ -165,6 +166,9 @@ def cmd_figure(args) -> int:
     if not args.fields and (needs_fields or budget is None):
         raise RequestError("Give the field files (NetCDF) first: maps, animations and new budgets are drawn from them.")
     fields = open_fields(args.fields, start=args.start, end=args.end) if args.fields else None
+    if args.animate and fields is not None and fields.times.size > FRAME_LIMIT:
+        raise RequestError(f"The window holds {fields.times.size} time steps, one frame each; animate at most "
+                           f"{FRAME_LIMIT} by narrowing --start/--end.")
     region = None
     if budget is None:
         if not args.region and not args.bbox:

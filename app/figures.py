@@ -737,8 +737,14 @@ def _window(budget, start: int, end: int | None):
 
 
 def _integral(values, seconds, base: float) -> float:
-    """The trapezoid integral of a sampled rate over the period (0 for a single step)."""
-    return float(np.trapezoid(values, seconds / base)) if values.size > 1 else 0.0
+    """The period total of a sampled rate by the rule of budget.periods (time steps as
+    intervals, INTEGRATION_RULE), so that mean × length = total (0 for a single step)."""
+    from budget.periods import step_intervals
+
+    if values.size < 2:
+        return 0.0
+    a, b, _ = step_intervals(seconds)
+    return float(np.sum(values * (b - a)) / base)
 
 
 def _row(term: str, mean: str, total: str, mean_value=float("nan"), total_value=float("nan")):
@@ -781,8 +787,8 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
                 kind: str = "vapour"):
     """Period means and totals of the chosen budget over time steps start..end (inclusive).
 
-    Totals are the trapezoid integral of the sampled rate over the period (mm, kg or m³ for
-    water; hPa for dry air).  Returns dicts with term, mean, total (text for the table) and
+    Totals follow budget.periods' rule, time steps as intervals (mm, kg or m³ for water; hPa
+    for dry air).  Returns dicts with term, mean, total (text for the table) and
     mean_value / total_value (floats in the displayed units).
     """
     if units not in UNIT_LABELS:

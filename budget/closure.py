@@ -100,9 +100,11 @@ def column_extras(ds, gather, w, check=None) -> dict:
 
 
 def _checked(gather, name, check, mask=None):
+    """Read ``name``; no unmarked fill values, and within its role's range (budget.plausible)."""
     arr = gather(name)
     if check is not None:
         check.fill(name, arr, mask)
+        check.in_role_range(name, arr, mask)
     return arr
 
 

@@ -76,8 +76,11 @@ class Columns:
     flagged: dict | None = None  # values accepted but counted (budget.plausible)
 
 
-def _columns(fields, st: Stencil, ds, tslice, profiles: bool, keep_levels: bool = False) -> Columns:
-    """Read one block's touched cells, check every value (budget.plausible), integrate."""
+def read_columns(fields, st: Stencil, ds, tslice, profiles: bool, keep_levels: bool = False) -> Columns:
+    """Read one block's touched cells, check every value (budget.plausible), integrate.
+
+    ``st`` needs only ``grid``, ``touched``, ``rows`` and ``cols`` (budget.multi passes the
+    union of several regions' cells)."""
     from .vertical import column_integral
 
     g = Gatherer(ds, Cells.of(st), tslice)
@@ -101,7 +104,13 @@ def _columns(fields, st: Stencil, ds, tslice, profiles: bool, keep_levels: bool 
 def _block(fields, st: Stencil, ds, tslice: slice, profiles: bool = False,
            attribute: attribution.AttributionOptions = attribution.AttributionOptions()) -> BlockSums:
     """Every per-time-step sum of one block of time steps."""
-    c = _columns(fields, st, ds, tslice, profiles, keep_levels=attribute.layers is not None)
+    c = read_columns(fields, st, ds, tslice, profiles, keep_levels=attribute.layers is not None)
+    return block_sums(fields, st, c, profiles, attribute)
+
+
+def block_sums(fields, st: Stencil, c: Columns, profiles: bool = False,
+               attribute: attribution.AttributionOptions = attribution.AttributionOptions()) -> BlockSums:
+    """The stencil's per-time-step sums of one block's columns (on the stencil's touched cells)."""
     flux = (st.bu @ c.qu.T + st.bv @ c.qv.T).T  # outward flux per piece, (time, piece)
     sums = dict(
         imp=-flux.sum(axis=1),
@@ -218,6 +227,11 @@ def compute(
                        progress=run.progress, scheduler=run.scheduler, store=run.resume, key=key,
                        keep_store=run.keep_resume)
     sums = BlockSums.concat(parts)
+    return budget_dataset(fields, region, st, times, sums, options, ds)
+
+
+def budget_dataset(fields, region, st: Stencil, times, sums: BlockSums, options: BudgetOptions, ds) -> xr.Dataset:
+    """The budget Dataset of one region from its concatenated block sums (after the last block)."""
     vap = vapour_terms(sums, times, float(st.area), options.method)
     closed = closure.close(fields, st, times, sums, vap, options.method, options.closure)
     return _assemble(fields, region, st, times, sums, closed, options, ds)

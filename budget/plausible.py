@@ -5,13 +5,16 @@ costs almost nothing and catches what a look at the first step cannot: humidity 
 labelled kg/kg from the second file on, surface pressure in hPa labelled Pa, an unmarked fill
 value in one cell at one time.
 
-Limits (SI, after unit conversion).  They are common practice with no single source:
+Limits (SI, after unit conversion) are the ``plausible`` ranges of the input roles in the role
+catalogue (budget.catalogue).  They are common practice with no single source:
 
 * specific humidity between −1e-4 and 0.04 kg/kg (the moistest tropical air holds about
   0.025); values between −1e-4 and 0 are accepted and counted (real reanalyses have small
   negative humidities from their numerics), anything lower is refused;
 * surface pressure between 300 and 1100 hPa;
 * horizontal wind speed below 150 m/s;
+* column inputs and cloud condensate within their roles' ranges (e.g. precipitable water
+  0-100 kg m-2, vapour flux components within ±5000 kg m-1 s-1);
 * any value with |x| > 1e15 is an unmarked fill value (NetCDF's default fill for floats is
   9.969e36, older files use 9.999e20 or 1e20).
 
@@ -26,17 +29,19 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .catalogue import role
 from .errors import FieldsError
 
 #: |x| above this is an unmarked fill value (common practice, no source).
 FILL_ABOVE = 1e15
 #: Specific humidity, kg kg-1: refused below the first, counted between it and 0, refused
-#: above the second (common practice, no source).
-HUMIDITY_RANGE = (-1e-4, 0.04)
-#: Surface pressure, Pa (300-1100 hPa; common practice, no source).
-SURFACE_PRESSURE_RANGE = (30000.0, 110000.0)
-#: Horizontal wind speed, m s-1 (common practice, no source).
-MAX_WIND_SPEED = 150.0
+#: above the second (the catalogue's range: common practice, no source).
+HUMIDITY_RANGE = role("q").plausible
+#: Surface pressure, Pa (300-1100 hPa; the catalogue's range: common practice, no source).
+SURFACE_PRESSURE_RANGE = role("ps").plausible
+#: Horizontal wind speed, m s-1: the catalogue's bound on each component, applied to the speed
+#: (common practice, no source).
+MAX_WIND_SPEED = role("u").plausible[1]
 
 #: What the humidity or pressure most likely is when it is out of range, and the fix.
 _FIX = {
@@ -46,6 +51,11 @@ _FIX = {
     ("ps", "high"): "it looks like a pressure in a smaller unit labelled Pa (e.g. dPa); give its unit with --units ps=UNIT",
     ("wind", "high"): "check the wind's unit and give it with --units (e.g. --units u=km/h)",
 }
+
+
+def _generic_fix(key: str) -> str:
+    r = role(key)
+    return f"check the variable and give its unit if it is not {r.si_unit}, e.g. --units {key}={r.example_unit}"
 
 
 @dataclass
@@ -136,9 +146,10 @@ class Checker:
                     value = arr[np.unravel_index(np.flatnonzero(bad.ravel())[0], bad.shape)]
                     w = self.where
                     limit = f"above {high:g}" if side == "high" else f"below {low:g}"
+                    fix = _FIX.get((key, side)) or _generic_fix(key)
                     raise FieldsError(
                         f"Variable {w.source(name)!r} in {w.file(step)} is {value:.4g} {unit} at {w.cell(cell)} on "
-                        f"{w.when(step)}, {limit} {unit}, which is not plausible; {_FIX[(key, side)]}."
+                        f"{w.when(step)}, {limit} {unit}, which is not plausible; {fix}."
                     )
 
     def humidity(self, name: str, q: np.ndarray, mask=None) -> None:
@@ -151,6 +162,15 @@ class Checker:
         n = int(neg.sum())
         if n:
             self.counts[name] = self.counts.get(name, 0) + n
+
+    def in_role_range(self, name: str, arr: np.ndarray, mask=None) -> None:
+        """Within the role's plausible range of the catalogue (roles without one: unchecked)."""
+        try:
+            r = role(name)
+        except KeyError:
+            return
+        if r.plausible is not None:
+            self.within(name, arr, r.plausible[0], r.plausible[1], name, r.si_unit, mask)
 
     def wind(self, u: np.ndarray, v: np.ndarray, mask=None) -> None:
         with np.errstate(invalid="ignore"):
@@ -182,10 +202,11 @@ def check_levels(chk: Checker, u, v, q, air) -> None:
 
 
 def check_columns(chk: Checker, arrays: dict) -> None:
-    """Every value of a column block: present and not a fill value."""
+    """Every value of a column block: present, not a fill value, within the role's range."""
     for name, arr in arrays.items():
         chk.finite(name, arr)
         chk.fill(name, arr)
+        chk.in_role_range(name, arr)
 
 
 def flagged_warning(counts: dict, source: dict) -> list[str]:

@@ -186,14 +186,16 @@ def test_curtain_zero_centred_in_hpa_and_column_inputs_explained():
     assert "levels" in fig.layout.annotations[0].text
 
 
-def test_period_rows_mean_and_trapezoid_total():
+def test_period_rows_mean_and_total_follow_one_rule():
     b = _budget(nt=5)
     rows = {r["term"]: r for r in figures.period_rows(b, "mm/day", 1, 3)}
     pme = rows["P − E"]
     rate = b["p_minus_e"].values[1:4] * 86400
     assert pme["mean_value"] == pytest.approx(rate.mean())
-    # steps are 6 h = 0.25 day apart: trapezoid total in mm
-    assert pme["total_value"] == pytest.approx(0.25 * (rate[0] / 2 + rate[1] + rate[2] / 2))
+    # steps are 6 h = 0.25 day apart and each holds its value for 6 h (budget.periods'
+    # rule): the total in mm, and mean × 0.75 day = total (identity)
+    assert pme["total_value"] == pytest.approx(0.25 * (rate[0] + rate[1] + rate[2]))
+    assert pme["mean_value"] * 0.75 == pytest.approx(pme["total_value"])
     assert pme["mean"].endswith("mm/day") and pme["total"].endswith("mm")
     w = rows["Precipitable water (mean; start → end)"]
     assert w["total_value"] == pytest.approx(2.0)
@@ -202,7 +204,7 @@ def test_period_rows_mean_and_trapezoid_total():
     conv = rows["Convergence, boundary method"]
     seconds = 6 * 3600.0
     rate = b["boundary_convergence"].values * 1.2302e12
-    assert conv["total_value"] == pytest.approx(np.trapezoid(rate, dx=seconds))
+    assert conv["total_value"] == pytest.approx(np.sum(rate) * seconds)
     assert conv["total"].endswith(" kg")
 
 

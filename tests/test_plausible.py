@@ -164,3 +164,14 @@ def test_command_line_summary_counts_flagged_values(small_levels, write_nc, tmp_
     assert r.returncode == 0, r.stderr
     assert "slightly negative" in r.stderr  # the warning
     assert any(ln.startswith("flagged values") and "q: 5" in ln for ln in r.stdout.splitlines()), r.stdout
+
+
+def test_column_inputs_are_held_to_their_roles_ranges(write_nc):
+    # precipitable water in g m-2 labelled kg m-2 from the second step: 1000x too much; the
+    # role catalogue bounds it at 100 kg m-2 (common practice, no source)
+    from budget import testing
+
+    col = testing.column_dataset(1.0, lon0=0.0, lon1=20.0, lat0=30.0, lat1=50.0, periodic=False, ntime=3)
+    col["w"][1:] = col["w"][1:] * 1000.0
+    with pytest.raises(FieldsError, match=r"'w'.*2031-03-01T06:00.*above 100 kg m-2.*--units w="):
+        budget_of(write_nc(col, "column_w.nc"))

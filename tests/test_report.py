@@ -169,15 +169,37 @@ def test_climatology_right_axis_is_the_volume_rate(sample_data):
     assert sample_data.from_m3_s(expected) == pytest.approx(1.0, rel=1e-12)
 
 
-def test_monthly_cycle_matches_pandas(sample_data):
-    # the annual cycle equals a plain pandas resample and groupby of the same series
+def test_monthly_cycle_of_a_short_record_matches_pandas(sample_data):
+    # five days of January: the daily means grouped by month, as a plain pandas resample gives
     import pandas as pd
 
-    cyc = report.monthly_cycle(sample_data, "p_minus_e")
+    cyc, spread = report.monthly_cycle(sample_data, "p_minus_e")
     daily = pd.Series(sample_data.budget["p_minus_e"].values * 86400.0, index=sample_data.times).resample("1D").mean()
-    assert list(cyc["month"]) == [1]
+    assert list(cyc["month"]) == [1] and "daily means" in spread
     assert cyc["mean"].iloc[0] == pytest.approx(daily.mean(), rel=1e-12)
     assert cyc["low"].iloc[0] == pytest.approx(daily.quantile(0.1), rel=1e-12)
+
+
+def test_monthly_cycle_of_years_is_the_interannual_mean_and_spread():
+    # three complete years of daily P - E = 2 + month/10 + (year - 2002) mm/day: each month's
+    # mean is 2 + month/10 and its spread between years is the sample standard deviation of
+    # (-1, 0, 1), which is 1 (ddof = 1); computed by hand, no library
+    import pandas as pd
+    import xarray as xr
+
+    from app.report import FigureData
+
+    times = pd.date_range("2001-01-01", "2003-12-31 18:00", freq="6h")
+    mm_day = 2.0 + times.month / 10.0 + (times.year - 2002)
+    ds = xr.Dataset({"p_minus_e": ("time", np.asarray(mm_day, float) / 86400.0, {"units": "kg m-2 s-1"})},
+                    coords={"time": times.values},
+                    attrs={"region_area_m2": 1.0e10, "region_name": "invented test box"})
+    cyc, spread = report.monthly_cycle(FigureData(budget=ds, region=None), "p_minus_e")
+    assert "between years" in spread
+    assert list(cyc["month"]) == list(range(1, 13))
+    assert list(cyc["years"]) == [3] * 12
+    assert np.allclose(cyc["mean"], 2.0 + np.arange(1, 13) / 10.0, rtol=1e-6)
+    assert np.allclose(cyc["high"] - cyc["mean"], 1.0, rtol=1e-6)
 
 
 def test_projection_choice():
@@ -221,3 +243,30 @@ def test_dashboard_coastline_and_shapefile_share_one_source():
     assert geo_points == shp_points
     assert shapefile_path("50m", "borders").exists()
     assert len(shipped_lines("50m", "borders")) > len(shipped_lines("110m", "borders")) > 100
+
+
+@pytest.mark.parametrize("bbox, kind", [
+    ((170.0, 60.0, -170.0, 80.0), "north-polar"),  # across the antimeridian, near the pole
+    ((-60.0, -82.0, 40.0, -72.0), "south-polar"),
+    ((150.0, -10.0, -160.0, 12.0), "azimuthal"),  # across the antimeridian and the equator
+])
+def test_region_only_maps_in_any_frame_draw_the_outline(bbox, kind):
+    # a map with no fields still draws the region and the shipped coastlines, offline
+    import pandas as pd
+    import xarray as xr
+
+    from app.report import FigureData
+    from app.report.mapview import frame_for
+    from budget.region import region_from_bbox
+
+    region = region_from_bbox(*bbox, name="invented test box")
+    budget = xr.Dataset(coords={"time": pd.date_range("2030-01-01", periods=2, freq="6h").values},
+                        attrs={"region_area_m2": region.area_m2(), "region_name": "invented test box"})
+    data = FigureData(budget=budget, region=region, source="none", invented=True)
+    assert frame_for(data).kind == kind
+    fig = report.render("map", data, report.get_style("paper"))
+    image = report.to_bytes(fig, "png", dpi=80)
+    import io
+
+    pixels = mpimg.imread(io.BytesIO(image))
+    assert _near(pixels, _rgb(OUTLINE)).sum() > 100

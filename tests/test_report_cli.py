@@ -125,3 +125,12 @@ def test_budget_file_that_is_not_a_budget(sample, tmp_path, capsys):
     assert "does not exist" in capsys.readouterr().err
     assert main(["figure", "--layout", "map", "--out", str(tmp_path / "m.png")]) != 0
     assert "Give the field files" in capsys.readouterr().err
+
+
+def test_too_many_frames_is_refused_before_drawing(sample, tmp_path, capsys, monkeypatch):
+    import app.figure_cmd
+
+    monkeypatch.setattr(app.figure_cmd, "FRAME_LIMIT", 5)
+    out = tmp_path / "long.gif"
+    assert main(["figure", str(sample.levels), "--region", str(sample.basin), "--animate", str(out)]) != 0
+    assert "holds 21 time steps" in capsys.readouterr().err and not out.exists()

@@ -87,15 +87,28 @@ class FigureData:
         return np.asarray(m3_s, float) / convert(1.0 / 86400.0, "m3/s", self.area_m2)
 
 
-def monthly_cycle(data: FigureData, name: str = "p_minus_e") -> pd.DataFrame:
-    """Mean annual cycle of a series: daily means grouped by calendar month.
+def monthly_cycle(data: FigureData, name: str = "p_minus_e") -> tuple[pd.DataFrame, str]:
+    """Mean annual cycle of a rate term in mm/day, and what its spread band means.
 
-    Columns: month (1-12), mean, low, high (10th and 90th percentiles of the daily means in
-    that month over all years: the spread), days, years.  Months without data are absent.
+    With complete months in two years or more, the cycle is budget.periods.climatology's:
+    the interannual mean of the monthly means, spread ±1 standard deviation between years.
+    A shorter record falls back to the daily means grouped by calendar month, spread the 10th
+    to 90th percentiles of those daily means.  Columns: month, mean, low, high, years.
     """
+    from budget.periods import climatology
+
+    clim = climatology(data.budget)
+    months = clim[(clim["period"] == "month") & (clim["years"] >= 1)]
+    column = f"{name}_mean_mm_day"
+    if column in months and (months["years"] >= 2).any():
+        mean = months[column].to_numpy(float)
+        std = months[f"{name}_std_mm_day"].fillna(0.0).to_numpy(float)
+        out = pd.DataFrame({"month": months["month"].astype(int).to_numpy(), "mean": mean, "low": mean - std,
+                            "high": mean + std, "years": months["years"].astype(int).to_numpy()})
+        return out, "±1 standard deviation between years"
     values = data.series(name)
-    frame = pd.Series(values, index=data.times).resample("1D").mean().dropna()
-    return _cycle(frame)
+    daily = pd.Series(values, index=data.times).resample("1D").mean().dropna()
+    return _cycle(daily), "10–90 % of daily means"
 
 
 def discharge_cycle(discharge: pd.Series) -> pd.DataFrame:

@@ -154,8 +154,8 @@ def draw_map(fig, data, style, convergence: bool = False, rect=(0.0, 0.0, 1.0, 1
             ref = nice_reference(vmax)
             arrow_key(ax, q, ref, style)
             _colourbar(fig, ax, mesh, "IVT (integrated vapour transport), kg m⁻¹ s⁻¹", style)
-            name = "" if compact else f"{data.region_name}: "
-            ax.set_title(f"{name}vapour transport, mean of {data.map_steps} steps", loc="left")
+            text = f"vapour transport, mean of {data.map_steps} steps"
+            ax.set_title(text[0].upper() + text[1:] if compact else f"{data.region_name}: {text}", loc="left")
         else:
             conv = snap["convergence"].values * 86400.0
             lim = signed_limit(conv)

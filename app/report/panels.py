@@ -122,7 +122,8 @@ def draw_boundary(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool = F
         _edge_ticks(ax, data, style)
         ax.set_xlim(0, x.max() * 1.0 + 1e-9)
         ax.set_ylabel("import, kg m⁻¹ s⁻¹")
-        ax.set_xlabel("distance along the boundary from vertex 1, km")
+        if not (compact and has_curtain):  # the curtain below carries the same distance axis
+            ax.set_xlabel("distance along the boundary from vertex 1, km")
         ax.set_title(_title(data, "import along the boundary, period mean", compact), pad=14)
         ax.legend(loc="lower right", ncol=2)
         axes.append(ax)
@@ -178,12 +179,12 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     """Mean annual cycle of P − E with its spread, on mm/day and m³/s axes, with discharge."""
     gs = _grid(fig, rect, 1, right=0.8 if compact else 0.86)
     ax = fig.add_subplot(gs[0])
-    cyc = monthly_cycle(data, "p_minus_e")
+    cyc, spread = monthly_cycle(data, "p_minus_e")
     m = cyc["month"].values
     ax.axhline(0.0, color=st.MUTED, linewidth=0.6 * style.line_width)
     ax.fill_between(m, cyc["low"], cyc["high"], color=st.IMPORT, alpha=0.2, linewidth=0)
     ax.errorbar(m, cyc["mean"], yerr=[cyc["mean"] - cyc["low"], cyc["high"] - cyc["mean"]], color=st.IMPORT,
-                marker="o", markersize=3 * style.line_width, capsize=3, label="P − E (bar/band: 10–90 % of daily means)")
+                marker="o", markersize=3 * style.line_width, capsize=3, label=f"P − E (bars and band: {spread})")
     if data.discharge is not None and len(data.discharge):
         dc = discharge_cycle(data.discharge)
         ax.plot(dc["month"], data.from_m3_s(dc["mean"]), color=st.SERIES_COLOURS["discharge"], marker="s",
@@ -197,7 +198,9 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     years = int(cyc["years"].max()) if len(cyc) else 0
     ax.set_title(_title(data, "mean annual cycle of P − E", compact))
     ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16) if compact else None)
-    if years < 10:
-        ax.text(0.99, 0.97, f"short record ({years} year(s)): only the months present are shown",
+    if "daily" in spread or years < 10:
+        short = ("short record: the months present, no complete month in two years" if "daily" in spread
+                 else f"{years} years of complete months: a short climatology")
+        ax.text(0.99, 0.97, short,
                 transform=ax.transAxes, ha="right", va="top", fontsize=style.caption_size, color=st.MUTED)
     return [ax]
