@@ -164,15 +164,23 @@ def _start(state, want: dict, key: str, again: bool = False):
     from budget.ledger import compute
     from budget.region import region_from_geojson
 
+    from budget.options import RunOptions
+
+    from .callbacks_attribution import job_options
+
     source, geojson, name = want["source"], want["geojson"], want["name"]
     method, correction = want["method"], want["correction"]
+    attribution = want.get("attribution")
 
     def work(progress):
         fields = state.fields(source)
+        if fields.ds.sizes["time"] > state.settings.long_steps:  # a long record: the pool
+            return state.pool().run(key, progress, state.checked_paths(source), geojson,
+                                    name, method, correction)
         region = region_from_geojson(geojson, name=name)
-        ds = compute(fields, region, method=method, profiles=True, scheduler="sync",
-                     mass_correction=False if correction == "off" else None,
-                     progress=progress)
+        options = job_options(method, correction, attribution, fields.kind)
+        ds = compute(fields, region, options=options,
+                     run=RunOptions(scheduler="sync", progress=progress))
         return ds.load()
 
     return state.jobs.submit(key, name, work, lambda ds: state.results.put(key, ds),
@@ -187,17 +195,20 @@ def _start(state, want: dict, key: str, again: bool = False):
     Input("regions", "data"),
     Input("correction", "value"),
     Input("budget-again", "n_clicks"),
+    Input("insight-options", "data"),  # layers and AR threshold (app/callbacks_attribution.py)
 )
-def request_budget(selected, method, source_id, regions, correction, _again):
+def request_budget(selected, method, source_id, regions, correction, _again, attribution=None):
     """What the page wants to see, with the server's key for it; starts its job."""
     rec = next((r for r in regions or [] if r["id"] == selected), None)
     if rec is None:
         return None
     want = {"source": str(source_id), "method": method, "correction": correction,
-            "region": rec["id"], "name": rec["name"], "geojson": rec["geojson"]}
+            "region": rec["id"], "name": rec["name"], "geojson": rec["geojson"],
+            "attribution": attribution}
     state = current()
     try:
-        want["key"] = state.budget_key(source_id, rec["geojson"], method, correction)
+        want["key"] = state.budget_key(source_id, rec["geojson"], method, correction,
+                                       attribution)
     except FluxfenceError as exc:
         want["key"], want["problem"] = None, str(exc)
         return want
@@ -273,7 +284,7 @@ def show_budget(want, units, time_index, period, kind, _tick):
     state = current()
     try:
         key = state.budget_key(want["source"], want["geojson"], want["method"],
-                               want["correction"])
+                               want["correction"], want.get("attribution"))
     except (FluxfenceError, KeyError, TypeError, AttributeError) as exc:
         return _blank(f"No budget for {name}.", problem(exc, "checking the request"),
                       "notice error", reason="Nothing to download.")
@@ -396,7 +407,7 @@ def _finished(want):
     state = current()
     try:
         key = state.budget_key(want["source"], want["geojson"], want["method"],
-                               want["correction"])
+                               want["correction"], want.get("attribution"))
     except (FluxfenceError, KeyError, TypeError, AttributeError):
         raise PreventUpdate from None
     ds = state.results.get(key)

@@ -13,11 +13,11 @@ import sys
 import time
 from pathlib import Path
 
-from app import cli_records
+from app import cli_attribution, cli_records
 from budget import __version__
 from budget.catalogue import var_help
 from budget.errors import FluxfenceError, RequestError
-from budget.options import ClosureOptions
+from budget.options import ClosureOptions, RunOptions
 
 CAUTION = (
     "Caution: reanalysis budgets are estimates with known imbalances; they are not a substitute "
@@ -110,19 +110,26 @@ def cmd_run(args) -> int:
         raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N.")
     if args.region and args.bbox:
         raise RequestError("Give either --region or --bbox, not both.")
+    if args.dataset:  # the same region on several field sets, side by side
+        return cli_attribution.run_datasets(args, _open_fields, ClosureOptions(**_closure_options(args)),
+                                            _Progress(not args.quiet), CAUTION)
+    if not args.fields:
+        raise RequestError("Give the field files to read (NetCDF, GRIB, Zarr or globs), or --dataset NAME=FILES twice or more.")
     if args.each_feature or cli_records.is_many(args):  # every feature of --region in one pass
+        cli_attribution.refuse_with_many(args)
         return cli_records.run_many(args, lambda: _open_fields(args), ClosureOptions(**_closure_options(args)),
                                     _Progress(not args.quiet), CAUTION)
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise RequestError(f"{str(out)!r} exists already; choose another --out or pass --overwrite.")
     tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
+    extra = cli_attribution.targets(args)
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
     fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
     for w in list(fields.warnings) + list(region.warnings):
         print(f"warning: {w}", file=sys.stderr)
-    ds = compute(fields, region, method=args.method, progress=_Progress(not args.quiet),
-                 scheduler=args.scheduler, resume=_partial_dir(out), **_closure_options(args))
+    ds = compute(fields, region, options=cli_attribution.budget_options(args, ClosureOptions(**_closure_options(args))),
+                 run=RunOptions(progress=_Progress(not args.quiet), scheduler=args.scheduler, resume=_partial_dir(out)))
     import json
 
     for w in json.loads(ds.attrs.get("warnings", "[]")):
@@ -133,8 +140,10 @@ def cmd_run(args) -> int:
     if args.netcdf:
         write(ds, args.netcdf)
     cli_records.write_tables(args, ds, tables)
+    cli_attribution.write_tables(args, ds, extra)
     if not args.quiet:
         print(_summary(ds))
+        print("\n".join(cli_attribution.summary_lines(ds)))
     if args.eddies:
         from budget.eddies import decompose
 
@@ -149,10 +158,10 @@ def cmd_run(args) -> int:
     return 0
 
 
-def _open_fields(args):
+def _open_fields(args, files=None):
     from budget.fields import open_fields
 
-    return open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    return open_fields(files if files is not None else args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
 
 
 def cmd_sample(args) -> int:
@@ -180,7 +189,7 @@ def cmd_serve(args) -> int:
     from app.server import serve
 
     serve(paths=args.fields or None, data_dir=args.data_dir, host=args.host, port=args.port,
-          workers=args.workers, job_threads=args.job_threads)
+          workers=args.workers, job_threads=args.job_threads, pool_workers=args.pool_workers)
     return 0
 
 
@@ -190,7 +199,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", required=True)
 
     r = sub.add_parser("run", help="compute the budget of a region and write CSV or NetCDF")
-    r.add_argument("fields", nargs="+", help="NetCDF files, globs or a Zarr store")
+    r.add_argument("fields", nargs="*", help="NetCDF or GRIB files, globs or a Zarr store (or --dataset NAME=FILES)")
     r.add_argument("--region", help="GeoJSON (.geojson/.json) or shapefile (.shp/.zip)")
     r.add_argument("--bbox", help="box W,S,E,N in degrees, e.g. --bbox -100,30,-80,45 (W > E crosses the antimeridian)")
     r.add_argument("--feature", help="which feature of a multi-feature file (a property value or an index)")
@@ -212,6 +221,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--accumulation-reset", metavar="HH:MM", help="a time of day (UTC) when accumulations restart (default 00:00)")
     r.add_argument("--evaporation-positive", choices=["up", "down"], help="sign of evaporation in the files when their metadata do not say (ECMWF: down)")
     cli_records.add_options(r)
+    cli_attribution.add_options(r)
     cli_records.add_region_options(r)
     r.set_defaults(func=cmd_run)
 
@@ -222,6 +232,7 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--port", type=int, default=8050)
     s.add_argument("--workers", type=int, default=8, help="request threads of the web server (default 8)")
     s.add_argument("--job-threads", type=int, default=2, help="budgets computed at once (default 2)")
+    s.add_argument("--pool-workers", type=int, default=1, help="worker processes for records over 2000 time steps (default 1)")
     s.set_defaults(func=cmd_serve)
 
     m = sub.add_parser("sample", help="write the invented demo event and basin outline")

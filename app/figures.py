@@ -528,8 +528,10 @@ def _rate_unit(units: str, kind: str) -> str:
 
 
 def _panel_title(what: str, name: str | None, time_label: str | None = None) -> dict:
-    text = f"{what} · {name or 'the region'}" + (f" · {time_label}" if time_label else "")
-    return dict(text=text, x=0.01, font=dict(size=14))
+    """A panel title naming the region (and the time shown) on a second, smaller line."""
+    where = f"{name or 'the region'}" + (f" · {time_label}" if time_label else "")
+    return dict(text=f"{what}<br><span style='font-size:12px'>{where}</span>", x=0.01,
+                y=1.0, yref="container", yanchor="top", pad=dict(t=24), font=dict(size=14))
 
 
 def _note_figure(text: str, title: dict | None = None) -> go.Figure:
@@ -583,7 +585,8 @@ def profile_figure(budget, time_index: int, name: str | None = None,
     view = _view(kind)
     title = _panel_title(f"{view.noun.capitalize()} crossing the boundary", name, time_label)
     if view.density not in budget:
-        return _note_figure(f"no boundary profile of {view.noun} in this result", title)
+        return _note_figure(f"the engine does not yet give the {view.noun} import along the "
+                            "boundary; see the table for its total", title)
     dist = np.asarray(budget["piece_distance"].values, dtype=float) / 1000.0
     dens = np.asarray(budget[view.density].isel(time=time_index).values, float)
     fig = _Fig()
@@ -600,14 +603,13 @@ def profile_figure(budget, time_index: int, name: str | None = None,
         hovertemplate="%{x:.0f} km along the boundary<br>%{y:.4g} kg m⁻¹ s⁻¹<extra></extra>",
     ))
     shapes, notes = _vertex_marks(budget)
-    _base_layout(fig, showlegend=True, margin=dict(l=60, r=20, t=48, b=40),
+    # no legend: the fills are named by the axis title, and the edge names sit above the plot
+    _base_layout(fig, showlegend=False, margin=dict(l=60, r=20, t=64, b=40),
                  shapes=[_hline(0, dict(color=MUTED, width=1))] + shapes, annotations=notes,
-                 legend=dict(orientation="h", x=1, xanchor="right", y=1.0, yanchor="bottom",
-                             font=dict(size=11), bgcolor="rgba(0,0,0,0)"),
                  title=title)
     fig.update_xaxes(title_text="distance along the boundary (km); dotted: vertices",
                      gridcolor=GRID, zeroline=False)
-    fig.update_yaxes(title_text="import (kg m⁻¹ s⁻¹)", gridcolor=GRID, zeroline=False)
+    fig.update_yaxes(title_text="in (+) / out (−), kg m⁻¹ s⁻¹", gridcolor=GRID, zeroline=False)
     return fig.done()
 
 
@@ -620,7 +622,8 @@ def curtain_figure(budget, time_index: int, name: str | None = None,
         if "normal_flux_density" not in budget:
             return _note_figure("the height profile needs inputs on levels (u, v, q); "
                                 "these fields are column totals", title)
-        return _note_figure(f"no height profile of {view.noun} in this result", title)
+        return _note_figure(f"the engine does not yet give the {view.noun} flux by height",
+                            title)
     dist = np.asarray(budget["piece_distance"].values, dtype=float) / 1000.0
     level_hpa = np.asarray(budget["level"].values, dtype=float) / 100.0
     da = budget[view.curtain].isel(time=time_index).transpose("level", "piece")
@@ -636,7 +639,7 @@ def curtain_figure(budget, time_index: int, name: str | None = None,
         name="inward flux",
     ))
     shapes, notes = _vertex_marks(budget)
-    _base_layout(fig, title=title, margin=dict(l=60, r=20, t=48, b=40), shapes=shapes,
+    _base_layout(fig, title=title, margin=dict(l=60, r=20, t=64, b=40), shapes=shapes,
                  annotations=notes)
     fig.update_xaxes(title_text="distance along the boundary (km)", showgrid=False)
     fig.update_yaxes(title_text="pressure (hPa)", autorange="reversed", showgrid=False)
@@ -695,7 +698,7 @@ def series_figure(budget, units: str = "mm/day", time_index: int | None = None,
         shapes += [_vline(t, marker, "x", "y"), _vline(t, marker, "x2", "y2")]
     # the legend sits above the plot, right of the title, clear of every axis title
     _base_layout(fig, showlegend=True, hovermode="x unified", title=title, shapes=shapes,
-                 margin=dict(l=60, r=20, t=70, b=45),
+                 margin=dict(l=60, r=20, t=88, b=45),
                  legend=dict(orientation="h", x=0, xanchor="left", y=1.0, yanchor="bottom",
                              font=dict(size=11), bgcolor="rgba(0,0,0,0)"))
     fig.update_yaxes(title_text=f"{view.content_label.split(' (')[0]} ({content_unit})",

@@ -24,11 +24,14 @@ SAMPLING_NOTE = (
 )
 
 
+SHORT_SAMPLING_NOTE = "period means; the split depends on the sampling interval (Seager and Henderson 2013)"
+
+
 def _layout(fig: go.Figure, title: str, **extra) -> go.Figure:
     fig.update_layout(
         title=dict(text=title, x=0.01, font=dict(size=14)),
         font=dict(family=FONT, color=INK, size=12), paper_bgcolor=PAPER, plot_bgcolor=PAPER,
-        margin=dict(l=70, r=20, t=50, b=60), legend=dict(orientation="h", y=-0.25, x=0),
+        margin=dict(l=70, r=20, t=60, b=90), legend=dict(orientation="h", y=-0.32, x=0),
         **extra,
     )
     fig.update_xaxes(gridcolor=GRID, zerolinecolor=MUTED)
@@ -53,8 +56,8 @@ def layer_edge_figure(budget, start: int = 0, end: int | None = None, name: str 
                     marker_color=LAYER_COLOURS[i % len(LAYER_COLOURS)],
                     hovertemplate="edge %{x}<br>" + str(layer) + ": %{y:.3s} kg/s<extra></extra>")
     who = f" — {name}" if name else ""
-    return _layout(fig, f"Import by layer and edge{who}", barmode="relative",
-                   xaxis_title="edge", yaxis_title="period-mean import (kg/s, + into the region)")
+    return _layout(fig, f"Period-mean import by layer and edge{who}", barmode="relative",
+                   xaxis_title="", yaxis_title="import (kg/s, + in)")
 
 
 def eddy_figure(split, name: str | None = None) -> go.Figure:
@@ -67,8 +70,8 @@ def eddy_figure(split, name: str | None = None) -> go.Figure:
                     hovertemplate="%{x}: %{y:.3s} kg/s<extra>" + label + "</extra>")
     who = f" — {name}" if name else ""
     fig = _layout(fig, f"Mean flow and transient eddies{who}", barmode="group",
-                  xaxis_title="edge", yaxis_title="period-mean import (kg/s)")
-    fig.add_annotation(text=SAMPLING_NOTE, xref="paper", yref="paper", x=0, y=1.0, yanchor="bottom",
+                  xaxis_title="", yaxis_title="import (kg/s, + in)")
+    fig.add_annotation(text=SHORT_SAMPLING_NOTE, xref="paper", yref="paper", x=0, y=1.0, yanchor="bottom",
                        showarrow=False, font=dict(size=10, color=MUTED), align="left")
     return fig
 
@@ -113,3 +116,89 @@ def datasets_figure(stacked, variable: str = "p_minus_e", scale: float = 86400.0
                         line=dict(color=DATASET_COLOURS[i % len(DATASET_COLOURS)], width=2))
     label = stacked[variable].attrs.get("long_name", variable)
     return _layout(fig, f"{label} by dataset", xaxis_title="time (UTC)", yaxis_title=f"{variable.replace('_', ' ')} ({unit})")
+
+
+# ---------------------------------------------------------------------------------------------
+# the selected period: step weights, atmospheric-river share, recycling, events as table rows
+# ---------------------------------------------------------------------------------------------
+def period_weights(budget, start: int, end: int) -> np.ndarray:
+    """Interval length (s) of each step inside steps ``start..end`` (inclusive), 0 outside:
+    steps are intervals as in budget.events (a value at tᵢ stands for [tᵢ, tᵢ₊₁))."""
+    from budget.events import step_seconds
+
+    dt = step_seconds(budget["time"].values)
+    w = np.zeros_like(dt)
+    w[int(start):int(end) + 1] = dt[int(start):int(end) + 1]
+    return w
+
+
+def ar_share_summary(budget, start: int, end: int) -> dict | None:
+    """The atmospheric-river share of the period's inflow: in total and by the edge where it
+    crossed (each edge's AR inflow over the region's whole inflow, so the edges add up to the
+    total).  None when the budget carries no AR inflow."""
+    if "ar_inflow" not in budget or "inflow" not in budget:
+        return None
+    from budget.attribution import ar_share
+
+    w = period_weights(budget, start, end)
+    total_in = float(np.nansum(budget["inflow"].values * w))
+    edges = []
+    if "ar_edge_inflow" in budget:
+        ar_edge = budget["ar_edge_inflow"].transpose("time", "edge").values
+        for k, e in enumerate(budget["edge"].values):
+            part = float(np.nansum(ar_edge[:, k] * w))
+            edges.append({"edge": str(e),
+                          "share_percent": 100.0 * part / total_in if total_in > 0 else None})
+    share = ar_share(budget, w)
+    return {
+        "share_percent": 100.0 * share if np.isfinite(share) else None,
+        "threshold": budget["ar_inflow"].attrs.get("ar_ivt_threshold", ""),
+        "mean_inflow_kg_s": total_in / float(w.sum()) if w.sum() > 0 else None,
+        "edges": edges,
+    }
+
+
+def recycling_summary(budget, start: int, end: int) -> dict:
+    """The bulk recycling ratio of the period (budget.recycling.period_ratio), or why there is
+    none: {"ratio": float | None, "text": one sentence, "assumptions": text}."""
+    from budget.errors import FluxfenceError
+    from budget.recycling import ASSUMPTIONS, period_ratio
+
+    try:
+        out = period_ratio(budget, period_weights(budget, start, end))
+    except FluxfenceError:
+        return {"ratio": None, "assumptions": ASSUMPTIONS,
+                "text": "No recycling ratio: it needs evaporation, and these fields carry "
+                        "neither evaporation nor precipitation; serve field files that include "
+                        "one of them."}
+    ratio = out["recycling_ratio"]
+    if not np.isfinite(ratio):
+        return {"ratio": None, "assumptions": ASSUMPTIONS,
+                "text": "No recycling ratio for this period: no water entered or evaporated "
+                        "(E·A + 2·F_in is not positive)."}
+    return {"ratio": float(ratio), "assumptions": ASSUMPTIONS,
+            "text": f"Bulk recycling ratio ρ = {ratio:.3f} ({out['evaporation_source']}; mean "
+                    f"E {out['mean_evaporation_kg_m2_s'] * 86400:.2f} mm/day, mean inflow "
+                    f"{out['mean_inflow_kg_s']:.3g} kg/s)."}
+
+
+def event_steps(times, start_iso: str, end_iso: str) -> tuple[int, int]:
+    """First and last step index of an event from its ISO 8601 start and (interval) end."""
+    t = np.asarray(times, dtype="datetime64[ns]")
+    a = np.datetime64(start_iso.rstrip("Z"), "ns")
+    b = np.datetime64(end_iso.rstrip("Z"), "ns")
+    first = int(np.searchsorted(t, a, side="left"))
+    last = int(np.searchsorted(t, b, side="left")) - 1
+    first = min(max(first, 0), t.size - 1)
+    return first, min(max(last, first), t.size - 1)
+
+
+def event_table(budget, events) -> list[dict]:
+    """``event_rows`` with the step range of each event (``first``, ``last``) and a row id, so
+    that a click on a row can set the period."""
+    rows = event_rows(events)
+    times = budget["time"].values
+    for row in rows:
+        row["id"] = row["event"]
+        row["first"], row["last"] = event_steps(times, row["start"], row["end"])
+    return rows

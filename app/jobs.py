@@ -103,7 +103,8 @@ class JobRunner:
         job.status = RUNNING
 
         def progress(done, total):
-            job.done, job.total = int(done), int(total)
+            if done is not None:  # None: only asks whether the job was cancelled
+                job.done, job.total = int(done), int(total)
             if job._cancel.is_set():
                 raise Cancelled()
 

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from dash import dcc, html
 
+from .layout_attribution import insight_card
+
 CAUTION = (
     "Reanalysis budgets are estimates with known imbalances; they are not a substitute for "
     "gauge records or official forecasts. Defer to local agencies and licensed practice."
@@ -236,6 +238,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             html.Div(className="side", children=[regions_card, budget_card]),
             series_card,
             profile_card,
+            insight_card(),
         ]),
         footer,
         dcc.Store(id="regions", data=initial_regions),

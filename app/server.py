@@ -97,12 +97,15 @@ def _initial_regions(sources) -> list:
     return [record(region, "r1", "Sample basin (invented)")]
 
 
-def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) -> dash.Dash:
+def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2,
+               pool_workers: int = 1, long_steps: int = 2000) -> dash.Dash:
     """Build the dashboard for the given fields (the sample event when none are given).
 
-    ``job_threads``: how many budgets are computed at once (threads of this process).
+    ``job_threads``: how many budgets are computed at once in threads of this process;
+    records longer than ``long_steps`` time steps go to ``pool_workers`` persistent worker
+    processes instead (app.pool).
     """
-    from . import callbacks, regions  # noqa: F401 - registers the callbacks
+    from . import callbacks, callbacks_attribution, regions  # noqa: F401 - registers the callbacks
     from .layout import build_layout
     from .state import Settings, Source, configure
 
@@ -115,7 +118,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) 
         sources=tuple(Source(id=s["id"], label=s["label"], paths=tuple(s["paths"]),
                              root=s.get("root"), basin=s.get("basin")) for s in sources),
         cache_dir=cache_dir, assets=ASSETS, upload_limit=UPLOAD_LIMIT_BYTES,
-        job_threads=job_threads,
+        job_threads=job_threads, pool_workers=pool_workers, long_steps=long_steps,
     ))
 
     app = dash.Dash(
@@ -137,7 +140,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2) 
 
 
 def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050, workers: int = 8,
-          job_threads: int = 2) -> None:
+          job_threads: int = 2, pool_workers: int = 1) -> None:
     """Serve the dashboard through waitress (``workers`` request threads) and block.
 
     Debug is off; the bind address defaults to this machine only.
@@ -145,9 +148,11 @@ def serve(paths=None, data_dir=None, host="127.0.0.1", port=8050, workers: int =
     import waitress
 
     logging.basicConfig(level=logging.INFO, format="%(message)s")
-    if int(workers) < 1 or int(job_threads) < 1:
-        raise RequestError("--workers and --job-threads take a whole number of at least 1.")
-    app = create_app(paths=paths, data_dir=data_dir, job_threads=job_threads)
+    if min(int(workers), int(job_threads), int(pool_workers)) < 1:
+        raise RequestError("--workers, --job-threads and --pool-workers take a whole number "
+                           "of at least 1.")
+    app = create_app(paths=paths, data_dir=data_dir, job_threads=job_threads,
+                     pool_workers=pool_workers)
     from .state import current
 
     current().warm()  # open the first field set now, not when the first page asks

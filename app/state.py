@@ -54,6 +54,8 @@ class Settings:
     assets: Path
     upload_limit: int = 10 * 2**20
     job_threads: int = 2
+    pool_workers: int = 1  # persistent worker processes for long records
+    long_steps: int = 2000  # a record with more time steps than this goes to the pool
 
 
 class LRU:
@@ -105,6 +107,7 @@ class AppState:
         self._open_locks: dict = {}
         self._lock = threading.Lock()
         self._coast = None
+        self._pool = None
         if self.jobs is None:
             self.jobs = JobRunner(self.settings.job_threads)
 
@@ -166,6 +169,20 @@ class AppState:
         thread.start()
         return thread
 
+    def pool(self):
+        """The pool of persistent workers for long records, started on first use."""
+        from .pool import ProcessPool
+
+        with self._lock:
+            if self._pool is None:
+                self._pool = ProcessPool(self.settings.pool_workers)
+            return self._pool
+
+    def shutdown(self) -> None:
+        self.jobs.shutdown()
+        if self._pool is not None:
+            self._pool.shutdown()
+
     def snapshot(self, source_id, time_index: int):
         from budget.maps import column_snapshot
 
@@ -189,9 +206,11 @@ class AppState:
         return self._coast
 
     # -- the cache key ------------------------------------------------------------------------
-    def budget_key(self, source_id, geojson: dict, method: str, correction: str) -> str:
+    def budget_key(self, source_id, geojson: dict, method: str, correction: str,
+                   attribution=None) -> str:
         """The one key of a budget result: engine version, input files (path, size, mtime),
-        region geometry, method and mass-correction setting."""
+        region geometry, method, mass-correction setting and the attribution record (layer
+        bounds, AR threshold: app/callbacks_attribution.py)."""
         if method not in METHODS or correction not in CORRECTIONS:
             raise RequestError("The page asked for an unknown method or correction setting; "
                                "reload the page.")
@@ -209,6 +228,7 @@ class AppState:
             "bbox": props.get("bbox"),
             "method": method,
             "correction": correction,
+            "attribution": attribution,
         }, sort_keys=True, default=str)
         return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
@@ -224,7 +244,7 @@ def configure(settings: Settings) -> AppState:
     """Make the server's state (called by server.create_app); a previous one is shut down."""
     state = AppState(settings)
     if _CURRENT:
-        _CURRENT[0].jobs.shutdown()
+        _CURRENT[0].shutdown()
         _CURRENT[0] = state
     else:
         _CURRENT.append(state)

@@ -97,12 +97,14 @@ class Cells:
     cols_u: np.ndarray
     r_pos: np.ndarray
     c_pos: np.ndarray
+    dims: tuple = ("lat", "lon")  # row and column dims (("y", "x") on projected grids)
 
     @classmethod
     def of(cls, st) -> "Cells":
         rows_u, r_pos = np.unique(st.rows, return_inverse=True)
         cols_u, c_pos = np.unique(st.cols, return_inverse=True)
-        return cls(rows_u, cols_u, r_pos, c_pos)
+        grid = getattr(st, "grid", None)
+        return cls(rows_u, cols_u, r_pos, c_pos, tuple(getattr(grid, "dims", ("lat", "lon"))))
 
 
 def gather(data, cells: Cells, tslice: slice):
@@ -120,7 +122,8 @@ def gather(data, cells: Cells, tslice: slice):
     rr, cr = runs(np.asarray(cells.rows_u), GATHER_GAP), runs(np.asarray(cells.cols_u), GATHER_GAP)
     ri = np.searchsorted([a for a, _ in rr], rows, side="right") - 1
     ci = np.searchsorted([a for a, _ in cr], cols, side="right") - 1
-    slabs = [ds.isel(time=tslice, lat=slice(r0, r1), lon=slice(c0, c1)) for r0, r1 in rr for c0, c1 in cr]
+    ydim, xdim = cells.dims
+    slabs = [ds.isel({"time": tslice, ydim: slice(r0, r1), xdim: slice(c0, c1)}) for r0, r1 in rr for c0, c1 in cr]
     slabs = dask.compute(*slabs, scheduler="synchronous")
     out = {}
     for name in ds.data_vars:
@@ -146,7 +149,7 @@ class Gatherer:
 
     def __call__(self, name):
         if self.cache is None:
-            names = [n for n, v in self.ds.data_vars.items() if {"time", "lat", "lon"} <= set(v.dims)]
+            names = [n for n, v in self.ds.data_vars.items() if {"time", *self.cells.dims} <= set(v.dims)]
             self.cache = gather(self.ds[names], self.cells, self.tslice) if names else {}
         if name in self.cache:
             return self.cache.pop(name)  # handed over once: the block owns it now

@@ -55,10 +55,10 @@ _L, _C, _B = ("levels",), ("column",), ("levels", "column")
 
 ROLES: tuple[Role, ...] = (
     Role("u", "eastward wind", "m s-1", "speed", "level", _L, True,
-         ("eastward_wind",), ("u", "ua", "uwnd", "U", "u_component_of_wind"),
+         ("eastward_wind", "grid_eastward_wind"), ("u", "ua", "uwnd", "U", "u_component_of_wind"),
          (-150.0, 150.0), "m/s"),
     Role("v", "northward wind", "m s-1", "speed", "level", _L, True,
-         ("northward_wind",), ("v", "va", "vwnd", "V", "v_component_of_wind"),
+         ("northward_wind", "grid_northward_wind"), ("v", "va", "vwnd", "V", "v_component_of_wind"),
          (-150.0, 150.0), "m/s"),
     Role("q", "specific humidity", "kg kg-1", "mass_fraction", "level", _L, True,
          ("specific_humidity",), ("q", "hus", "shum", "Q", "QV", "specific_humidity"),

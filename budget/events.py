@@ -2,8 +2,8 @@
 
 An event is a run of consecutive time steps whose P − E exceeds a percentile of the region's
 own record (default the 95th), runs being joined when the time between them is shorter than a
-day (both options).  Time steps are taken as intervals: a value at tᵢ stands for [tᵢ, tᵢ₊₁),
-the last step for the same length as the one before it, so an event from the step at t₀ to
+day (both options).  Time steps are taken as intervals by the integration rule of
+budget.periods (a value at tᵢ stands for [tᵢ, tᵢ₊₁), the last step for one nominal step), so an event from the step at t₀ to
 the step at t₁ covers [t₀, t₁ + Δt) and its total is Σ (P − E)ᵢ Δtᵢ over every step inside,
 including the quieter steps of a joined gap.
 
@@ -40,13 +40,16 @@ class EventRule:
 
 
 def step_seconds(times: np.ndarray) -> np.ndarray:
-    """Length of each time step as an interval (s): the gap to the next time, the last step
-    as long as the one before it (a single step gets 0: it covers no time)."""
+    """Length of each time step as an interval (s), by the one integration rule of
+    budget.periods (INTEGRATION_RULE: up to the next step; a gap longer than 1.5 nominal steps
+    and the last step count one nominal step). A single step covers no time (0)."""
+    from .periods import step_intervals
+
     t = np.asarray(times, dtype="datetime64[ns]").astype("int64") / 1e9
     if t.size < 2:
         return np.zeros(t.size)
-    dt = np.diff(t)
-    return np.concatenate([dt, dt[-1:]])
+    start, end, _ = step_intervals(t)
+    return end - start
 
 
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:

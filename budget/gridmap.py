@@ -115,6 +115,47 @@ def _first_line(exc) -> str:
     return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
 
 
+def find_mapping(raw, where: str = "the file"):
+    """The CF grid mapping a dataset's variables point to (None for longitude-latitude)."""
+    refs = []
+    for var in raw.data_vars.values():
+        ref = var.attrs.get("grid_mapping")
+        if ref:
+            refs.append(str(ref).split(":")[0].strip())  # CF extended form "crs: x y"
+    refs += [n for n, v in raw.variables.items() if "grid_mapping_name" in v.attrs]
+    for name in dict.fromkeys(refs):
+        if name in raw.variables:
+            attrs = dict(raw[name].attrs)
+            if attrs.get("grid_mapping_name") == "latitude_longitude":
+                continue
+            return GridMapping.from_cf(attrs, where)
+    return None
+
+
+#: CF standard names saying how a wind component is oriented.
+EARTH_WINDS = ("eastward_wind", "northward_wind")
+GRID_WINDS = ("grid_eastward_wind", "grid_northward_wind")
+
+
+def wind_frame(var, where: str = "the file") -> str:
+    """'grid' or 'earth' for a wind component on a projected grid, as its attributes say.
+
+    CF standard_name grid_eastward_wind / eastward_wind, or the GRIB flag uvRelativeToGrid
+    kept by budget.grib; FieldsError when neither tells.
+    """
+    std = str(var.attrs.get("standard_name", ""))
+    flag = var.attrs.get("GRIB_uvRelativeToGrid")
+    if std.startswith("grid_") or flag == 1:
+        return "grid"
+    if std.startswith(("eastward_", "northward_")) or flag == 0:
+        return "earth"
+    raise FieldsError(
+        f"The orientation of the wind '{var.name}' in {where} cannot be told on this projected grid (no "
+        "standard_name eastward_wind or grid_eastward_wind); set that attribute to say whether the "
+        "components are earth- or grid-relative."
+    )
+
+
 # -- winds --------------------------------------------------------------------------------
 def earth_relative(ux, uy, alpha):
     """Earth-relative (eastward, northward) components of a vector given along the grid axes.
@@ -215,6 +256,8 @@ class ProjectedGrid:
     #: relative shortfall of the summed cover against the region's exact area that still
     #: counts as fully covered (cells are measured through densified edges)
     cover_rtol: float = 1e-5
+    #: names of the row and column dimensions in the canonical fields
+    dims = ("y", "x")
 
     @classmethod
     def from_latlon(cls, mapping: GridMapping, lon2d, lat2d, where: str = "the file"):

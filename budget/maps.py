@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from .stencil import Grid, divergence_operator
+from .stencil import Grid
 from .vertical import column_integral
 
 
@@ -28,9 +28,9 @@ def column_snapshot(fields, time_index: int) -> xr.Dataset:
         w = column_integral(q, dp)
     grid = Grid.from_fields(fields)
     cells = np.arange(qu.size)
-    du, dv = divergence_operator(grid, cells)
+    du, dv = grid.divergence(cells)
     conv = -(du @ np.nan_to_num(qu).ravel() + dv @ np.nan_to_num(qv).ravel()).reshape(qu.shape)
-    dims = ("lat", "lon")
+    dims = grid.dims
     coords = {"lat": ds["lat"], "lon": ds["lon"], "time": ds["time"]}
     return xr.Dataset(
         {

@@ -72,8 +72,7 @@ class Where:
 
     def cell(self, index: int) -> str:
         st = self.stencil
-        j, i = divmod(int(st.touched[int(index)]), st.grid.shape[1])
-        return f"({st.grid.lon[i]:g}°E, {st.grid.lat[j]:g}°N)"
+        return st.grid.point_text(st.touched[int(index)])
 
     def source(self, name: str) -> str:
         roles = {**dict(getattr(self.fields, "roles", {})), **dict(getattr(self.fields, "extra_roles", {}))}
@@ -155,6 +154,10 @@ class Checker:
     def humidity(self, name: str, q: np.ndarray, mask=None) -> None:
         lo, hi = HUMIDITY_RANGE
         self.within(name, q, lo, hi, "q", "kg/kg", mask)
+        self.count_negative(name, q, mask)
+
+    def count_negative(self, name: str, q: np.ndarray, mask=None) -> None:
+        """Count the small negative values accepted (real reanalyses have them)."""
         with np.errstate(invalid="ignore"):
             neg = q < 0
         if mask is not None:
@@ -184,26 +187,43 @@ def _first(bad: np.ndarray) -> tuple[int, int]:
     return int(idx[0]), int(idx[-1])
 
 
+def _all_within(arr, low, high, mask=None) -> bool:
+    """True when every value that counts lies in low..high (NaN and fill values do not)."""
+    with np.errstate(invalid="ignore"):
+        ok = (arr >= low) & (arr <= high)
+    return bool(ok.all() if mask is None else (ok | ~mask).all())
+
+
 def check_surface_pressure(chk: Checker, ps) -> None:
     """Surface pressure, every touched cell (it decides which layers count)."""
+    lo, hi = SURFACE_PRESSURE_RANGE
+    if _all_within(ps, lo, hi):  # one pass when all is well; the diagnosis only when not
+        return
     chk.finite("ps", ps)
     chk.fill("ps", ps)
-    lo, hi = SURFACE_PRESSURE_RANGE
     chk.within("ps", ps, lo, hi, "ps", "Pa")
 
 
 def check_levels(chk: Checker, u, v, q, air) -> None:
     """Winds and humidity where they count (layers above the ground)."""
-    for name, arr in (("u", u), ("v", v), ("q", q)):
-        chk.finite(name, arr, air)
-        chk.fill(name, arr, air)
-    chk.humidity("q", q, air)
-    chk.wind(u, v, air)
+    lo, hi = HUMIDITY_RANGE
+    with np.errstate(invalid="ignore", over="ignore"):
+        speed2 = u * u + v * v  # NaN and fill values fail the comparison too
+    if not (_all_within(speed2, 0.0, MAX_WIND_SPEED**2, air) and _all_within(q, lo, hi, air)):
+        for name, arr in (("u", u), ("v", v), ("q", q)):  # the diagnosis names the culprit
+            chk.finite(name, arr, air)
+            chk.fill(name, arr, air)
+        chk.within("q", q, lo, hi, "q", "kg/kg", air)
+        chk.wind(u, v, air)
+    chk.count_negative("q", q, air)
 
 
 def check_columns(chk: Checker, arrays: dict) -> None:
     """Every value of a column block: present, not a fill value, within the role's range."""
     for name, arr in arrays.items():
+        limits = role(name).plausible
+        if limits is not None and _all_within(arr, *limits):  # one pass when all is well
+            continue
         chk.finite(name, arr)
         chk.fill(name, arr)
         chk.in_role_range(name, arr)

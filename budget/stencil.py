@@ -41,6 +41,8 @@ class Grid:
     periodic: bool
     #: relative shortfall of the summed cover against the region's area still counted as full
     cover_rtol = 1e-6
+    #: names of the row and column dimensions in the canonical fields
+    dims = ("lat", "lon")
 
     @classmethod
     def from_fields(cls, fields):

@@ -54,6 +54,21 @@ def lambert_grid():
     return ProjectedGrid(mapping, x, np.arange(-1000e3, 1500.1e3, 111e3))
 
 
+POLAR = {
+    "grid_mapping_name": "polar_stereographic",
+    "straight_vertical_longitude_from_pole": 10.0,
+    "latitude_of_projection_origin": 90.0,
+    "standard_parallel": 60.0,
+    "earth_radius": R,
+}
+
+
+def polar_grid():
+    # about 1° (111 km at 60° N; the scale grows to 1.07 at 35° N) in the north polar plane
+    mapping = GridMapping.from_cf(POLAR)
+    return ProjectedGrid(mapping, np.arange(-1700e3, 2300.1e3, 100e3), np.arange(-6600e3, -2800.1e3, 100e3))
+
+
 def grid_relative_by_3d_rotation(grid, qu, qv):
     """Rotated-pole grid-relative components without the engine's metric: project the 3-D
     vector on the rotated frame's east and north (closed form)."""
@@ -138,6 +153,18 @@ def test_rotated_pole_metric_is_the_spherical_one():
     np.testing.assert_allclose(m.hy, deg, rtol=1e-7)
 
 
+def test_polar_stereographic_metric_matches_pyproj():
+    import pyproj
+
+    grid = polar_grid()
+    m = grid.metric()
+    f = pyproj.Proj(grid.mapping.crs).get_factors(grid.lon, grid.lat)
+    np.testing.assert_allclose(m.hx, 1.0 / np.asarray(f.parallel_scale), rtol=1e-7)
+    np.testing.assert_allclose(np.degrees(m.alpha), -np.asarray(f.meridian_convergence), atol=1e-6)
+    # north polar stereographic: grid north turns with longitude, α = −(λ − λ0) (closed form)
+    np.testing.assert_allclose(np.angle(np.exp(1j * (m.alpha + np.radians(grid.lon - 10.0)))), 0.0, atol=1e-9)
+
+
 def test_winds_round_trip_and_preserve_speed():
     rng = np.random.default_rng(1)
     u, v, a = rng.normal(size=(3, 50))
@@ -179,8 +206,9 @@ def test_gridded_divergence_approaches_the_analytic_one(make):
 
 @pytest.mark.parametrize(
     "make,relative",
-    [(rotated_grid, grid_relative_by_3d_rotation), (lambert_grid, grid_relative_by_pyproj)],
-    ids=["rotated", "lambert"],
+    [(rotated_grid, grid_relative_by_3d_rotation), (lambert_grid, grid_relative_by_pyproj),
+     (polar_grid, grid_relative_by_pyproj)],
+    ids=["rotated", "lambert", "polar"],
 )
 @pytest.mark.parametrize(
     "region,geom",
@@ -235,3 +263,81 @@ def test_irregular_2d_coordinates_are_refused():
     again, flip_y, flip_x = ProjectedGrid.from_latlon(grid.mapping, grid.lon[::-1], grid.lat[::-1])
     assert flip_y and not flip_x
     np.testing.assert_allclose(again.y, grid.y, atol=1e-3)
+
+
+# -- through open_fields and compute: a CF NetCDF on each grid ----------------------------------------
+G0 = 9.80665  # standard gravity (CHECKS.md constants)
+
+
+def cf_file(tmp_path, grid, relative, name):
+    """A CF NetCDF on a projected grid: winds along the grid axes (grid_eastward_wind), q and
+    ps uniform, two pressure levels; the column flux (1/g)·q·u·Δp is the analytic Q."""
+    import xarray as xr
+
+    qu, qv = analytic.flux(grid.lon, grid.lat)
+    qx, qy = relative(grid, qu, qv)
+    q, dp = 0.01, 50000.0  # levels 500 and 1000 hPa, ps = 1000 hPa: Σ Δp = ps − p_top
+    scale = G0 / (q * dp)
+    lev = np.array([500.0, 1000.0])
+    cube = lambda a: np.broadcast_to(a * scale, (1, 2) + a.shape)[:, :, ::-1]  # noqa: E731 y stored descending
+    xdim, ydim = ("rlon", "rlat") if grid.mapping.name.startswith("rotated") else ("x", "y")
+    dims = ("time", "plev", ydim, xdim)
+    wind = lambda a, std: xr.Variable(dims, cube(a), {"units": "m s-1", "standard_name": std, "grid_mapping": "crs"})  # noqa: E731
+    ds = xr.Dataset(
+        {
+            "ua": wind(qx, "grid_eastward_wind"),
+            "va": wind(qy, "grid_northward_wind"),
+            "hus": xr.Variable(dims, np.full((1, 2) + grid.shape, q), {"units": "kg kg-1", "grid_mapping": "crs"}),
+            "ps": xr.Variable(("time", ydim, xdim), np.full((1,) + grid.shape, 100000.0), {"units": "Pa", "grid_mapping": "crs"}),
+            "crs": xr.Variable((), 0, grid.mapping.cf),
+        },
+        coords={
+            "time": ("time", np.array(["2031-03-01T00"], dtype="datetime64[ns]")),
+            "plev": ("plev", lev, {"units": "hPa", "standard_name": "air_pressure"}),
+            ydim: (ydim, grid.y[::-1], {"units": grid.mapping.native_units}),
+            xdim: (xdim, grid.x, {"units": grid.mapping.native_units}),
+            "lat": ((ydim, xdim), grid.lat[::-1], {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": ((ydim, xdim), grid.lon[::-1], {"units": "degrees_east", "standard_name": "longitude"}),
+        },
+    )
+    path = tmp_path / f"{name}.nc"
+    ds.to_netcdf(path)
+    return path
+
+
+@pytest.mark.parametrize(
+    "make,relative", [(rotated_grid, grid_relative_by_3d_rotation), (lambert_grid, grid_relative_by_pyproj)], ids=["rotated", "lambert"]
+)
+def test_cf_netcdf_on_a_projected_grid_gives_the_lonlat_answer(tmp_path, make, relative):
+    from budget.fields import open_fields
+    from budget.ledger import compute
+
+    grid = make()
+    fields = open_fields(str(cf_file(tmp_path, grid, relative, make.__name__)))
+    assert fields.native_grid is not None and fields.ds["u"].dims[-2:] == ("y", "x")
+    assert any("along the grid axes" in w for w in fields.warnings)
+    # uniform q: the vapour flux is the air flux times q, so the dry-air mass correction
+    # would take the divergence away; the analytic check needs the winds as given
+    ds = compute(fields, region_from_vertices(*POLY), mass_correction=False)
+    exact = exact_import(shapely.Polygon(list(zip(*POLY))))
+    # the tolerances of the lon-lat analytic test at 1° (tests/test_budget_analytic.py)
+    assert float(ds["vapour_import"].values[0]) == pytest.approx(exact, rel=5e-3)
+    assert float(ds["area_convergence"].values[0]) * ds.attrs["region_area_m2"] == pytest.approx(exact, rel=2e-2)
+    # uniform q and ps: W = q Δp / g (CHECKS.md column integrals), up to the cover's
+    # densified cell edges (the summed cover is the region's area within 1e-5)
+    assert float(ds["precipitable_water"].values[0]) == pytest.approx(0.01 * 50000.0 / G0, rel=1e-5)
+
+
+def test_projected_winds_of_unknown_orientation_are_refused(tmp_path):
+    import xarray as xr
+
+    from budget.fields import open_fields
+
+    path = cf_file(tmp_path, lambert_grid(), grid_relative_by_pyproj, "lcc")
+    ds = xr.open_dataset(path).load()
+    for k in ("ua", "va"):
+        del ds[k].attrs["standard_name"]
+    bad = tmp_path / "unknown.nc"
+    ds.to_netcdf(bad)
+    with pytest.raises(FieldsError, match=r"orientation of the wind 'ua' in .*unknown.nc' cannot be told"):
+        open_fields(str(bad))

@@ -23,7 +23,7 @@ def sample(da: xr.DataArray) -> np.ndarray:
     """A few hundred values of the first time step (all levels), read cheaply."""
     sub = da.isel(time=0)
     sl = {}
-    for d in ("lat", "lon"):
+    for d in [d for d in ("lat", "lon", "y", "x") if d in sub.dims]:
         n = sub.sizes[d]
         sl[d] = slice(None, None, max(1, n // 24))
     sub = sub.isel(sl)

@@ -22,7 +22,7 @@ from .hints import units_hint
 
 #: Optional roles whose units are read (not converted) here: budget.observed converts them.
 RAW_UNITS = {"precip", "evap"}
-CANONICAL_ORDER = ("time", "level", "lat", "lon")
+CANONICAL_ORDER = ("time", "level", "lat", "lon", "y", "x")
 
 
 def conversion(key: str, src: str, da: xr.DataArray, units: dict, where: str) -> tuple[Conversion, str]:
@@ -67,7 +67,7 @@ class _Builder:
     defer: bool
 
     def rename(self) -> dict:
-        out = {self.g.lat_dim: "lat", self.g.lon_dim: "lon"}
+        out = {self.g.lat_dim: self.g.canon[0], self.g.lon_dim: self.g.canon[1]}
         if self.g.time_dim is not None:
             out[self.g.time_dim] = "time"
         if self.vdim is not None:
@@ -101,6 +101,8 @@ class _Builder:
         r = role(key)
         da.attrs = {"units": r.si_unit, "long_name": r.long_name, "source_name": src,
                     "source_units": raw_units}
+        if "source_message" in self.raw[src].attrs:  # which GRIB messages served (budget.grib)
+            da.attrs["source_message"] = self.raw[src].attrs["source_message"]
         if r.standard_names:
             da.attrs["standard_name"] = r.standard_names[0]
         da.name = key

@@ -10,6 +10,7 @@ import numpy as np
 import xarray as xr
 
 from ..errors import FieldsError
+from ..gridmap import ProjectedGrid, find_mapping
 from ..units import normalise
 from .model import spacing
 
@@ -29,6 +30,12 @@ class GridDims:
     lat_dim: str
     lon_dim: str
     time_dim: str | None
+    mapping: object = None  # budget.gridmap.GridMapping of a projected grid, else None
+
+    @property
+    def canon(self) -> tuple:
+        """Canonical names of the row and column dims: (lat, lon), or (y, x) when projected."""
+        return ("y", "x") if self.mapping is not None else ("lat", "lon")
 
     @property
     def hdims(self) -> set:
@@ -40,6 +47,9 @@ def find_grid(raw: xr.Dataset, where: str) -> GridDims:
     """The grid stage's first half: which variables are latitude, longitude and time."""
     lat_name = find_horizontal(raw, "lat", where)
     lon_name = find_horizontal(raw, "lon", where)
+    if raw[lat_name].ndim == 2:  # a projected grid: budget.gridmap
+        ydim, xdim = raw[lat_name].dims
+        return GridDims(lat_name, lon_name, ydim, xdim, guess_time_dim(raw), find_mapping(raw, where))
     return GridDims(lat_name, lon_name, raw[lat_name].dims[0], raw[lon_name].dims[0],
                     guess_time_dim(raw))
 
@@ -52,15 +62,20 @@ class Orientation:
     lon: np.ndarray
     isel: dict
     notes: list = field(default_factory=list)
+    native: object = None  # budget.gridmap.ProjectedGrid on projected grids
 
     @property
     def periodic(self) -> bool:
+        if self.native is not None:
+            return False
         step = spacing(self.lon)
         return bool(self.lon.size > 1 and abs(self.lon.size * step - 360.0) <= 0.1 * step)
 
 
 def orientation(raw: xr.Dataset, g: GridDims, where: str) -> Orientation:
     """The grid stage's second half: check the coordinates, find the canonical order."""
+    if g.mapping is not None:
+        return projected_orientation(raw, g, where)
     lat = np.asarray(raw[g.lat_name].values, dtype=float)
     lon = np.asarray(raw[g.lon_name].values, dtype=float)
     if lat.size > 1 and not (np.all(np.diff(lat) > 0) or np.all(np.diff(lat) < 0)):
@@ -89,6 +104,19 @@ def orientation(raw: xr.Dataset, g: GridDims, where: str) -> Orientation:
     if not np.array_equal(lon_idx, np.arange(raw[g.lon_name].size)):
         isel["lon"] = lon_idx
     return Orientation(lat, lon, isel, notes)
+
+
+def projected_orientation(raw: xr.Dataset, g: GridDims, where: str) -> Orientation:
+    """A projected grid: native x, y found from the 2-D coordinates, ascending (budget.gridmap)."""
+    lon2d = raw[g.lon_name].transpose(g.lat_dim, g.lon_dim).values
+    lat2d = raw[g.lat_name].transpose(g.lat_dim, g.lon_dim).values
+    grid, flip_y, flip_x = ProjectedGrid.from_latlon(g.mapping, lon2d, lat2d, where)
+    isel = {}
+    if flip_y:
+        isel["y"] = np.arange(grid.y.size)[::-1]
+    if flip_x:
+        isel["x"] = np.arange(grid.x.size)[::-1]
+    return Orientation(grid.lat, grid.lon, isel, [], native=grid)
 
 
 def guess_time_dim(ds: xr.Dataset) -> str | None:
@@ -143,6 +171,8 @@ def find_horizontal(ds: xr.Dataset, axis: str, where: str) -> str:
             f"{', '.join(names)}); Fluxfence needs a regular longitude-latitude grid."
         )
     var = ds[chosen]
+    if var.ndim == 2 and find_mapping(ds, where) is not None:
+        return chosen
     if var.ndim != 1:
         raise FieldsError(
             f"The {std} coordinate '{chosen}' in {where} is {var.ndim}-dimensional "

@@ -36,6 +36,8 @@ class Fields:
     extra_roles: dict = field(default_factory=dict)  # optional roles found (OPTIONAL_ROLES)
     #: how a derived role was obtained, e.g. {"q": "from relative humidity 'r' and ..."}
     derived: dict = field(default_factory=dict)
+    #: a projected grid (budget.gridmap.ProjectedGrid; lat/lon are then 2-D), else None
+    native_grid: object = None
 
     def describe(self) -> str:
         """A few lines for command-line summaries."""
@@ -56,6 +58,10 @@ class Fields:
                 f"{_fmt(a[0] / 100.0)} hPa + {_fmt(b[0])} ps, bottom "
                 f"{_fmt(a[-1] / 100.0)} hPa + {_fmt(b[-1])} ps"
             )
+        if self.native_grid is not None:
+            lines.append(f"grid: {self.native_grid.shape[0]} x {self.native_grid.shape[1]} cells of "
+                         f"{self.native_grid.mapping.describe()}, {self.native_grid.extent_text()[2:]}")
+            return self._describe_rest(lines)
         nlat, nlon = self.lat.size, self.lon.size
         dlat = spacing(self.lat)
         dlon = spacing(self.lon)
@@ -65,6 +71,9 @@ class Fields:
             f"lon {_fmt(self.lon[0])} to {_fmt(self.lon[-1])}"
             + (" (global, periodic)" if self.periodic else "")
         )
+        return self._describe_rest(lines)
+
+    def _describe_rest(self, lines: list) -> str:
         t = self.times
         if t.size and not np.isnat(t[0]):
             step = ""

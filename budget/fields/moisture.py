@@ -53,7 +53,7 @@ def derive_q(ds: xr.Dataset, forms: dict, vertical, phase: str = "water") -> tup
             how = f"from the water vapour pressure '{forms['vp']}'"
         how += ", q = eps e / (p - (1 - eps) e) at each level's pressure"
     r = role("q")
-    q = q.transpose(*[d for d in ("time", "level", "lat", "lon") if d in q.dims])
+    q = q.transpose(*[d for d in ("time", "level", "lat", "lon", "y", "x") if d in q.dims])
     q.attrs = {"units": r.si_unit, "long_name": r.long_name, "standard_name": r.standard_names[0],
                "source_name": "+".join(forms.values()),
                "source_units": ", ".join(str(ds[k].attrs.get("source_units")) for k in forms),

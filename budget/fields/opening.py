@@ -23,6 +23,7 @@ from typing import Callable
 import xarray as xr
 
 from ..errors import FieldsError
+from ..grib import is_grib
 from .grid import LAT_NAMES, LON_NAMES, guess_time_dim
 from . import joining
 from .hints import short, where as where_text
@@ -201,6 +202,7 @@ def _open_netcdf_one(files: list, chunks) -> Source:
 #: The format table, tried in order; the first row that claims the paths opens them.
 #: (An xarray.Dataset given directly is handled before the table.)
 FORMATS: list[Format] = [
+    Format("grib", lambda files: any(is_grib(f) for f in files), lambda files, chunks: open_grib_files(files, chunks)),
     Format("zarr", lambda files: len(files) == 1 and is_zarr(files[0]), _open_zarr),
     Format("netcdf", lambda files: len(files) == 1, _open_netcdf_one),
     Format("netcdf-many", lambda files: len(files) > 1, lambda files, chunks: open_many(files, chunks)),
@@ -216,6 +218,23 @@ def open_source(paths, chunks=None) -> Source:
         if fmt.claims(files):
             return fmt.open(files, chunks)
     raise FieldsError(f"No reader accepts {where_text(files)}; give NetCDF files or a Zarr store.")
+
+
+def open_grib_files(files: list, chunks) -> Source:
+    """GRIB files (budget.grib), with any NetCDF files of the same grid beside them (e.g. a
+    surface-pressure file next to GRIB levels), joined by coordinates."""
+    from ..grib import join_inputs, open_grib
+
+    parts, notes = [], []
+    for f in files:
+        if is_grib(f):
+            g = open_grib(f)
+            parts.append((f, g.ds))
+            notes += g.warnings
+        else:
+            parts.append((f, open_plain(f)))
+    ds = join_inputs(parts, where_text(files))
+    return Source(ds.chunk(chunks) if chunks is not None else ds, files, None, notes)
 
 
 def open_many(files: list, chunks) -> Source:

@@ -25,7 +25,7 @@ import xarray as xr
 from .. import humidity
 from ..catalogue import COLUMN_ROLES, LEVEL_ROLES
 from ..vertical import PressureLevels
-from . import checks, convert, moisture, opening, roles, times
+from . import checks, convert, gridwinds, moisture, opening, roles, times
 from .grid import Orientation, find_grid, indexer, orientation
 from .levels import Levels, read_levels
 from .model import Fields
@@ -73,6 +73,9 @@ def open_fields(paths, var_map: dict | None = None, units: dict | None = None,
     notes += (lev.notes if lev else []) + canon.notes + orient.notes
     ds, column_ds = (_orient(d, orient, lev, choice.vdim) for d in (canon.ds, canon.column_ds))
     ds, column_ds, tvals = _times(raw, g, ds, column_ds, src, canon, req, where, notes)  # times
+    if orient.native is not None:                                             # winds
+        ds, column_ds = (gridwinds.to_earth(d, raw, {**choice.found, **choice.column}, orient.native, where, notes)
+                         for d in (ds, column_ds))
     derived = {}
     if choice.humidity:                                                       # humidity
         checks.humidity_forms(ds, choice.humidity, where)
@@ -93,7 +96,7 @@ def open_fields(paths, var_map: dict | None = None, units: dict | None = None,
         lat=np.asarray(ds["lat"].values), lon=np.asarray(ds["lon"].values),
         times=np.asarray(ds["time"].values).astype("datetime64[ns]"), warnings=notes,
         column_ds=column_ds, column_roles=canon.column_roles, extra_roles=canon.extra_roles,
-        derived=derived,
+        derived=derived, native_grid=orient.native,
     )
 
 
@@ -106,7 +109,7 @@ def _orient(d: xr.Dataset | None, o: Orientation, lev: Levels | None, vdim) -> x
         isel["level"] = lev.order
     if isel:
         d = d.isel({k: indexer(v) for k, v in isel.items() if k in d.dims})
-    coords = {
+    coords = gridwinds.coords(o.native) if o.native is not None else {
         "lat": ("lat", o.lat, {"units": "degrees_north", "standard_name": "latitude",
                                "long_name": "latitude"}),
         "lon": ("lon", o.lon, {"units": "degrees_east", "standard_name": "longitude",
