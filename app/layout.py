@@ -209,6 +209,11 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             html.Button("Full budget as NetCDF", id="dl-nc", className="btn", disabled=True),
             html.Span(id="dl-reason", className="muted small"),
         ]),
+        html.Div(className="row downloads", children=[  # app/callbacks_report.py
+            html.Button("Report figure (PDF)", id="dl-report-pdf", className="btn"),
+            html.Button("Report figure (PNG)", id="dl-report-png", className="btn"),
+            html.Span(id="report-message", className="muted small", role="status"),
+        ]),
         cls="side-card", id="budget-card",
     )
 
@@ -249,4 +254,5 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         dcc.Download(id="download-region"),
         dcc.Download(id="download-csv"),
         dcc.Download(id="download-nc"),
+        dcc.Download(id="download-report"),
     ])
