@@ -238,7 +238,7 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")
     r.add_argument("--var", action="append", metavar="ROLE=NAME", help=var_help())
-    r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong")
+    r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong (e.g. q=g/kg, ua=knots, level=hPa)")
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")
     r.add_argument("--netcdf", help="also write the full budget as NetCDF here")

@@ -128,3 +128,24 @@ def test_temperature_in_celsius_is_converted(tmp_path):
     ds["t"] = _new(ds["t"] - 273.15, units="degC")
     f = open_fields(write(ds, tmp_path))
     check_levels_formula(f, q_tol=1e-9)
+
+
+def test_rh_on_hybrid_levels_uses_each_layers_pressure(tmp_path):
+    # CF appendix D: p = a p0 + b ps; here at the middle of each layer (interface means)
+    from tests.test_fields import P0, make_hybrid
+
+    ds, ps = make_hybrid(form="a")
+    p = ds["a"] * P0 + ds["b"] * ds["PS"]
+    e = ds["hus"] * p / (EPSILON + (1.0 - EPSILON) * ds["hus"])
+    t = _dewpoint_of(e / 0.5).transpose(*ds["hus"].dims)
+    out = ds.drop_vars("hus")
+    out["r"] = _new(xr.full_like(ds["hus"], 50.0), units="%", standard_name="relative_humidity")
+    out["t"] = _new(t, units="K", standard_name="air_temperature")
+    f = open_fields(write(out, tmp_path))
+    np.testing.assert_allclose(f.ds["q"].values, ds["hus"].values[:, ::-1], rtol=1e-9)
+
+
+def test_relative_humidity_mapped_as_q_points_to_rh(tmp_path):
+    with pytest.raises(FieldsError) as e:
+        open_fields(write(as_form("rh"), tmp_path), var_map={"q": "r"})
+    assert "--var rh=r" in str(e.value)

@@ -97,3 +97,18 @@ def test_wrong_role_told_by_units_when_no_standard_name(tmp_path):
     with pytest.raises(FieldsError) as e:
         open_fields(write(ds, tmp_path), var_map={"q": "ps"})
     assert "its units 'Pa' are a pressure" in str(e.value)
+
+
+def test_files_with_different_calendars_are_refused_naming_both(tmp_path):
+    import xarray as xr
+
+    from tests.test_fields import make_column
+
+    a = make_column(ntime=2)
+    b = make_column(ntime=2).assign_coords(
+        time=xr.date_range("2021-03-02", periods=2, freq="D", calendar="noleap", use_cftime=True))
+    paths = [write(a, tmp_path, "a.nc"), write(b, tmp_path, "b.nc")]
+    with pytest.raises(FieldsError) as e:
+        open_fields(paths)
+    msg = str(e.value)
+    assert "a.nc" in msg and "b.nc" in msg and "calendars" in msg and "noleap" in msg

@@ -107,6 +107,8 @@ def _refuse_other_quantity(var: xr.DataArray, key: str, name: str, units: dict, 
         other = [r for r in ROLES if std in r.standard_names]
         if other:
             clue = f"its standard name '{std}' marks it as {other[0].long_name}"
+            if key == "q" and other[0].key in HUMIDITY_FORMS:
+                clue += f" (give it as --var {other[0].key}={name}, and q is derived from it)"
     raw_units = var.attrs.get("units")
     if (clue is None and raw_units is not None and key not in units and name not in units
             and me.dimension in TABLES and to_si(raw_units, me.dimension) is None):
@@ -200,9 +202,11 @@ def _refuse_missing(choice: RoleChoice, raw, where) -> None:
             )
     if missing:
         names = ", ".join(describe_role(r) for r in missing)
+        other = (" (or give relative humidity with temperature, the dew point, the mixing ratio "
+                 "or the vapour pressure, e.g. --var rh=NAME --var t=NAME)") if missing[0] == "q" else ""
         raise FieldsError(
             f"No variable found for {names} in {where}, which holds: {contents(raw)}; "
-            f"name it with {var_hint(missing[0])}."
+            f"name it with {var_hint(missing[0])}{other}."
         )
 
 
