@@ -98,11 +98,15 @@ def paced_engine(monkeypatch):
     real = budget.ledger.compute
 
     def paced(*args, progress=None, **kw):
+        # the dashboard passes its progress callback in RunOptions (budget.options)
+        report = progress if progress is not None else getattr(kw.get("run"), "progress", None)
         for k in range(30):
-            if progress is not None:
-                progress(k, 30)
+            if report is not None:
+                report(k, 30)
             time.sleep(0.25)
-        return real(*args, progress=progress, **kw)
+        if progress is not None:
+            kw["progress"] = progress
+        return real(*args, **kw)
 
     monkeypatch.setattr(budget.ledger, "compute", paced)
     return real
