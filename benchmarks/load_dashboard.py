@@ -54,6 +54,11 @@ def array_values(array) -> list:
     return list(array)
 
 
+def _outputs(dep: dict) -> list[str]:
+    """The outputs of a dependency as id.property (a duplicate-allowed output carries @hash)."""
+    return [o.split("@")[0] for o in dep["output"].strip(".").split("...")]
+
+
 class Page:
     """The two budget callbacks of the dashboard, called as the page calls them."""
 
@@ -61,8 +66,8 @@ class Page:
         self.url = url
         with urllib.request.urlopen(url + "/_dash-dependencies", timeout=30) as resp:
             deps = json.loads(resp.read())
-        self.request = next(d for d in deps if d["output"] == "want.data")
-        self.show = next(d for d in deps if "series.figure" in d["output"])
+        self.request = next(d for d in deps if "want.data" in _outputs(d))
+        self.show = next(d for d in deps if "series.figure" in _outputs(d))
 
     @staticmethod
     def _payload(dep: dict, values: dict, changed: str) -> dict:

@@ -18,9 +18,20 @@ import pytest
 def served(tmp_path_factory):
     import waitress.server
 
+    import importlib
+    import sys
+
+    from dash import _callback
+
     from app.server import create_app
     from app.state import current
 
+    # Dash hands its globally registered callbacks to the first app only; when the browser
+    # tests built theirs earlier in this process, register them again for this one.
+    names = ["app.callbacks", "app.callbacks_attribution", "app.callbacks_report", "app.regions"]
+    if all(n in sys.modules for n in names) and not _callback.GLOBAL_CALLBACK_LIST:
+        for n in names:
+            importlib.reload(sys.modules[n])
     app = create_app(cache_dir=tmp_path_factory.mktemp("load-cache"), job_threads=2)
     current().fields("0")
     server = waitress.server.create_server(app.server, host="127.0.0.1", port=0, threads=4)
