@@ -174,11 +174,11 @@ def _start(state, want: dict, key: str, again: bool = False):
 
     def work(progress):
         fields = state.fields(source)
+        options = job_options(method, correction, attribution, fields.kind)
         if fields.ds.sizes["time"] > state.settings.long_steps:  # a long record: the pool
             return state.pool().run(key, progress, state.checked_paths(source), geojson,
-                                    name, method, correction)
+                                    name, options)
         region = region_from_geojson(geojson, name=name)
-        options = job_options(method, correction, attribution, fields.kind)
         ds = compute(fields, region, options=options,
                      run=RunOptions(scheduler="sync", progress=progress))
         return ds.load()
@@ -236,7 +236,13 @@ BUDGET_OUT = {
     "dl_reason": Output("dl-reason", "children"),
     "budget_actions": Output("budget-actions", "style"),
     "kinds": Output("budget-kind", "options"),
+    # greyed (CSS class "computing") while the chosen region's budget computes
+    "series_class": Output("series-panel", "className"),
+    "profile_class": Output("profile-panel", "className"),
+    "curtain_class": Output("curtain-panel", "className"),
+    "table_class": Output("budget-table", "className"),
 }
+PANEL, PANEL_COMPUTING = "panel", "panel computing"
 KIND_MISSING = {
     "dry": "These fields are column totals without winds on levels, so they carry no dry-air "
            "mass budget; choose Water vapour.",
@@ -254,14 +260,21 @@ def _blank(text: str, message: str = "", message_class: str = "notice", *, again
             "poll_off": True, "progress": None, "progress_max": None, "progress_text": "",
             "running": HIDDEN, "again": SHOWN if again else HIDDEN, "csv_off": True,
             "nc_off": True, "dl_reason": reason,
-            "budget_actions": {} if actions else HIDDEN, "kinds": no_update}
+            "budget_actions": {} if actions else HIDDEN, "kinds": no_update,
+            **_panel_classes(PANEL)}
+
+
+def _panel_classes(cls: str) -> dict:
+    return {k: cls for k in ("series_class", "profile_class", "curtain_class", "table_class")}
 
 
 def _computing(job, name: str) -> dict:
     steps = (f"step {job.done} of {job.total}" if job.total else "starting")
     out = _blank(f"Computing the budget of {name}… ({steps})",
                  reason=f"Downloads wait for the budget of {name}.")
-    out.update(poll_off=False, running=SHOWN,
+    out.update(_panel_classes(PANEL_COMPUTING))
+    out.update(table=html.P(f"Computing the budget of {name}…", className="muted small"),
+               poll_off=False, running=SHOWN,
                progress=str(job.done) if job.total else None,
                progress_max=str(job.total) if job.total else None,
                progress_text=f"{name}: {steps}")
