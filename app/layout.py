@@ -261,6 +261,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         dcc.Store(id="upload-held", data=None),
         dcc.Store(id="want", data=None),
         dcc.Interval(id="budget-poll", interval=300, disabled=True),
+        dcc.Store(id="budget-ready", data=None),  # the job ended: draw (app/callbacks.py)
         dcc.Download(id="download-region"),
         dcc.Download(id="download-csv"),
         dcc.Download(id="download-nc"),
