@@ -341,3 +341,18 @@ def test_grib_levels_with_a_netcdf_of_surface_pressure(tmp_path, gfs_budget):
     ref = gfs_budget[1]
     np.testing.assert_allclose(ds["precipitable_water"].values, ref["precipitable_water"].values, rtol=1e-12)
     np.testing.assert_allclose(ds["vapour_import"].values, ref["vapour_import"].values, rtol=1e-12)
+
+
+def test_dashboard_data_folder_lists_grib_files_by_the_format_tables_endings(tmp_path):
+    """--data-dir finds GRIB files as the format table names them (budget/fields/opening.py)."""
+    import shutil
+
+    from app.server import resolve_sources
+    from budget.fields.opening import FIELD_SUFFIXES
+
+    assert {".grib2", ".grb", ".nc", ".zarr"} <= set(FIELD_SUFFIXES)
+    shutil.copy(NAM, tmp_path / "nam.grib2")
+    shutil.copy(GFS, tmp_path / "gfs.GRB2")
+    (tmp_path / "notes.txt").write_text("not fields")
+    labels = [s["label"] for s in resolve_sources(data_dir=tmp_path)]
+    assert labels == ["gfs.GRB2", "nam.grib2"]
