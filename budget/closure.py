@@ -46,8 +46,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import xarray as xr
 
-from . import mass, observed, terms, units
-from .constants import SECONDS_PER_DAY
+from . import mass, observed, terms
 from .errors import RequestError
 from .options import ClosureOptions
 from .timeaxis import tendency
@@ -250,7 +249,7 @@ def close(fields, st, times, sums, vapour: VapourTerms, method: str, opts: Closu
     have_dry = sums.mu is not None
     state = _state(opts, have_dry)
     out = Closed(vapour, {}, {}, [], state)
-    summary: dict = {"method": method}
+    summary: dict = {"method": method, "units": {}}
     speeds = _dry_air(out, st, times, sums, method, summary) if have_dry else None
     if speeds is not None:
         _correct(out, st, sums, speeds, method, summary)
@@ -268,6 +267,14 @@ def close(fields, st, times, sums, vapour: VapourTerms, method: str, opts: Closu
     )
     out.attrs["closure_summary"] = json.dumps(summary)
     return out
+
+
+def _note(summary: dict, stat: str, name: str, value: float) -> None:
+    """One statistic of a term in the closure summary: the value in SI, its units (from the
+    term catalogue) under ``summary["units"]``; the key is ``<stat>_<term>``."""
+    key = f"{stat}_{name}"
+    summary[key] = float(value)
+    summary["units"][key] = terms.term(name).units
 
 
 def _dry_air(out: Closed, st, times, sums, method, summary):
@@ -300,13 +307,11 @@ def _dry_air(out: Closed, st, times, sums, method, summary):
         "dry_air_residual_pressure": _var("dry_air_residual_pressure", pressure),
         "mass_correction_speed": _var("mass_correction_speed", c, correction=state),
     })
-    summary.update({
-        "mean_dry_air_residual_kg_m2_s": _mean(resid),
-        "mean_dry_air_residual_hpa_day": float(units.pa_s_to_hpa_day(_mean(pressure))),
-        "mean_abs_dry_air_residual_hpa_day": float(units.pa_s_to_hpa_day(_mean(np.abs(pressure)))),
-        "mean_mass_correction_speed_m_s": _mean(c),
-        "max_abs_mass_correction_speed_m_s": float(np.nanmax(np.abs(c))) if c.size else float("nan"),
-    })
+    _note(summary, "mean", "dry_air_residual", _mean(resid))
+    _note(summary, "mean", "dry_air_residual_pressure", _mean(pressure))
+    _note(summary, "mean_abs", "dry_air_residual_pressure", _mean(np.abs(pressure)))
+    _note(summary, "mean", "mass_correction_speed", _mean(c))
+    _note(summary, "max_abs", "mass_correction_speed", float(np.nanmax(np.abs(c))) if c.size else float("nan"))
     return c, c_b, c_a
 
 
@@ -332,11 +337,9 @@ def _correct(out: Closed, st, sums, speeds, method, summary) -> None:
         "vapour_convergence_uncorrected": _var("vapour_convergence_uncorrected", v.conv, method=f"{method} method"),
         "p_minus_e_uncorrected": _var("p_minus_e_uncorrected", pme_u),
     })
-    summary.update({
-        "mean_p_minus_e_mm_day": _mean(out.vapour.pme) * SECONDS_PER_DAY,
-        "mean_p_minus_e_uncorrected_mm_day": _mean(pme_u) * SECONDS_PER_DAY,
-        "mean_mass_correction_effect_mm_day": _mean(dconv_v) * SECONDS_PER_DAY,
-    })
+    _note(summary, "mean", "p_minus_e", _mean(out.vapour.pme))
+    _note(summary, "mean", "p_minus_e_uncorrected", _mean(pme_u))
+    _note(summary, "mean", "mass_correction_convergence", _mean(dconv_v))
 
 
 def _total_water(out: Closed, fields, st, times, sums, speeds, method, summary) -> None:
@@ -359,7 +362,7 @@ def _total_water(out: Closed, fields, st, times, sums, speeds, method, summary) 
     })
     if speeds is not None:
         out.variables["p_minus_e_total_water_uncorrected"] = _var("p_minus_e_total_water_uncorrected", tconv_u - ttend)
-    summary["mean_p_minus_e_total_water_mm_day"] = _mean(tconv - ttend) * SECONDS_PER_DAY
+    _note(summary, "mean", "p_minus_e_total_water", _mean(tconv - ttend))
 
 
 def _observed(out: Closed, fields, times, sums, opts: ClosureOptions, summary) -> None:
@@ -386,11 +389,11 @@ def _observed(out: Closed, fields, times, sums, opts: ClosureOptions, summary) -
             )
         rates[role] = r
         out.variables[name] = _var(name, r, **{k: str(v) for k, v in info.items()})
-        summary[f"mean_{name}_mm_day"] = _mean(r) * SECONDS_PER_DAY
+        _note(summary, "mean", name, _mean(r))
     if "precip" in rates and "evap" in rates:
         pe = rates["precip"] - rates["evap"]
         pme = out.vapour.pme
         out.variables["p_minus_e_observed"] = _var("p_minus_e_observed", pe)
         out.variables["closure_residual"] = _var("closure_residual", pe - pme, correction=out.correction.sentence)
-        summary["mean_closure_residual_mm_day"] = _mean(pe - pme) * SECONDS_PER_DAY
-        summary["mean_abs_closure_residual_mm_day"] = _mean(np.abs(pe - pme)) * SECONDS_PER_DAY
+        _note(summary, "mean", "closure_residual", _mean(pe - pme))
+        _note(summary, "mean_abs", "closure_residual", _mean(np.abs(pe - pme)))

@@ -51,6 +51,7 @@ import re
 import numpy as np
 import pandas as pd
 
+from . import catalogue
 from .errors import FieldsError, RequestError
 from .units import WATER_AMOUNT, WATER_RATE
 from .units import normalise as _norm
@@ -59,11 +60,9 @@ from .units import normalise as _norm
 AMOUNT_UNITS = WATER_AMOUNT
 RATE_UNITS = WATER_RATE
 
-#: CF standard names (CF standard-name table v83) of each role, split into rates and amounts.
-PRECIP_RATE_NAMES = ("precipitation_flux", "lwe_precipitation_rate")
-PRECIP_AMOUNT_NAMES = ("precipitation_amount", "lwe_thickness_of_precipitation_amount")
-EVAP_RATE_NAMES = ("water_evapotranspiration_flux", "water_evaporation_flux", "lwe_water_evaporation_rate")
-EVAP_AMOUNT_NAMES = ("water_evapotranspiration_amount", "water_evaporation_amount")
+#: CF standard names of evaporation (rates and amounts), from the role catalogue: each means
+#: positive upward (CF standard-name table).
+EVAP_STANDARD_NAMES = catalogue.role("evap").standard_names
 
 #: Source names that follow the ECMWF downward-positive convention (from memory).
 _ECMWF_EVAP = {"e", "mer", "avg_ie"}
@@ -244,7 +243,7 @@ def evaporation_sign(attrs: dict, source: str, override=None):
     if pos in ("up", "down"):
         return (1.0 if pos == "up" else -1.0), f"positive {pos}ward per the 'positive' attribute"
     std = attrs.get("standard_name")
-    if std in EVAP_RATE_NAMES + EVAP_AMOUNT_NAMES:
+    if std in EVAP_STANDARD_NAMES:
         return 1.0, f"positive upward (evaporation) per CF standard_name {std}"
     param = str(attrs.get("GRIB_paramId", attrs.get("GRIB_paramid", ""))).strip()
     if param == "182" or source in _ECMWF_EVAP or str(attrs.get("GRIB_shortName", "")) in _ECMWF_EVAP:

@@ -156,7 +156,8 @@ def test_switching_the_correction_off_keeps_the_files_answer(corrupted):
     np.testing.assert_allclose(off["mass_correction_speed"].values, -C0, rtol=1e-8)
     assert off.attrs["mass_correction"].startswith("not applied")
     summary = json.loads(off.attrs["closure_summary"])
-    assert summary["mean_mass_correction_speed_m_s"] == pytest.approx(-C0.mean(), rel=1e-6)
+    assert summary["mean_mass_correction_speed"] == pytest.approx(-C0.mean(), rel=1e-6)
+    assert summary["units"]["mean_mass_correction_speed"] == "m s-1"
 
 
 def test_rising_surface_pressure_gives_the_pressure_tendency_and_inflow():

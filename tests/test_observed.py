@@ -188,7 +188,9 @@ def test_precipitation_evaporation_and_closure_residual():
     np.testing.assert_allclose(ds["p_minus_e_observed"].values, ds["precipitation"].values - 1.5e-5, rtol=1e-12)
     np.testing.assert_allclose(ds["closure_residual"].values, ds["p_minus_e_observed"].values - ds["p_minus_e"].values, rtol=1e-12)
     summary = json.loads(ds.attrs["closure_summary"])
-    assert summary["mean_precipitation_mm_day"] == pytest.approx(np.mean(ds["precipitation"].values) * 86400, rel=1e-9)
+    # SI values with their units beside (the term catalogue's)
+    assert summary["mean_precipitation"] == pytest.approx(np.mean(ds["precipitation"].values), rel=1e-9)
+    assert summary["units"]["mean_precipitation"] == "kg m-2 s-1"
     assert summary["variables_used"]["precip"] == "tp"
 
 
