@@ -14,7 +14,6 @@ Gauge series and budget are summed by the same rule (budget.periods.INTEGRATION_
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -23,6 +22,9 @@ import xarray as xr
 from .errors import RequestError
 from .periods import PeriodRule, calendar_of, period_grid, region_views
 from . import terms
+
+#: The budget's P − E column in m³/s (the term catalogue's CSV column, written there once).
+PME_M3_S = next(c.name for c in terms.term("p_minus_e").columns if c.unit == "m3/s")
 
 ASSUMPTION = (
     "storage change on and under the land is taken to average out over whole water years; "
@@ -164,7 +166,7 @@ def compare(ds: xr.Dataset, gauge: Gauge, water_year_start: int = 10, min_covera
             pme, dis = (r["mean_budget"], r["mean_gauge"]) if done else (np.nan, np.nan)
             rows.append({"region": name, "period": r["period"], "start": r["start_budget"], "end": r["end_budget"],
                          "budget_coverage": r["coverage_budget"], "gauge_coverage": r["coverage_gauge"], "complete": done,
-                         "p_minus_e_m3_s": pme, "discharge_m3_s": dis, "difference_m3_s": pme - dis,
+                         PME_M3_S: pme, "discharge_m3_s": dis, "difference_m3_s": pme - dis,
                          "ratio": dis / pme if done and pme != 0 else np.nan})
         rows.append(_long_term(name, both, ok))
     out = pd.DataFrame(rows)
@@ -183,7 +185,7 @@ def _long_term(name: str, both: pd.DataFrame, ok: pd.Series) -> dict:
     if len(use):
         pme = use["total_budget"].sum() / use["covered_s_budget"].sum()
         dis = use["total_gauge"].sum() / use["covered_s_gauge"].sum()
-        row.update({"p_minus_e_m3_s": pme, "discharge_m3_s": dis, "difference_m3_s": pme - dis, "ratio": dis / pme if pme != 0 else np.nan})
+        row.update({PME_M3_S: pme, "discharge_m3_s": dis, "difference_m3_s": pme - dis, "ratio": dis / pme if pme != 0 else np.nan})
     return row
 
 
@@ -195,7 +197,7 @@ def summary_text(table: pd.DataFrame) -> str:
             lines.append(f"{r['region']}: no water year is complete in both the budget and the gauge record; no long-term comparison.")
             continue
         lines.append(
-            f"{r['region']}: {r['first']}..{r['last']} ({r['years']} water years): mean P - E {r['p_minus_e_m3_s']:.4g} m3/s, "
+            f"{r['region']}: {r['first']}..{r['last']} ({r['years']} water years): mean P - E {r[PME_M3_S]:.4g} m3/s, "
             f"mean discharge {r['discharge_m3_s']:.4g} m3/s, ratio {r['ratio']:.3f}, gauge missing {100 * r['missing_fraction']:.1f} %"
         )
     lines.append(f"assumption: {ASSUMPTION}")

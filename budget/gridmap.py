@@ -28,6 +28,7 @@ from functools import cached_property
 
 import numpy as np
 
+from .catalogue import role
 from .constants import EARTH_RADIUS
 from .errors import FieldsError
 
@@ -133,8 +134,9 @@ def find_mapping(raw, where: str = "the file"):
 
 
 #: CF standard names saying how a wind component is oriented.
-EARTH_WINDS = ("eastward_wind", "northward_wind")
-GRID_WINDS = ("grid_eastward_wind", "grid_northward_wind")
+#: CF standard names of earth-relative and grid-relative winds, from the role catalogue.
+EARTH_WINDS = tuple(n for k in ("u", "v") for n in role(k).standard_names if not n.startswith("grid_"))
+GRID_WINDS = tuple(n for k in ("u", "v") for n in role(k).standard_names if n.startswith("grid_"))
 
 
 def wind_frame(var, where: str = "the file") -> str:

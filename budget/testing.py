@@ -14,7 +14,13 @@ import numpy as np
 import shapely
 import xarray as xr
 
+from budget.catalogue import role as _role
 from budget.constants import EARTH_RADIUS as A
+
+
+def _cf(key: str) -> str:
+    """The CF standard name the role catalogue writes out for role ``key``."""
+    return _role(key).standard_names[0]
 
 # χ = C1 sinφ cosφ cosλ (l=2, m=1) + C2 cos²φ sin2λ (l=2, m=2) + C3 sinφ (l=1)
 C1, C2, C3 = 3.0e9, 1.5e9, 1.0e9
@@ -103,9 +109,9 @@ def column_dataset(res, lon0=-180.0, lon1=180.0, lat0=-90.0, lat1=90.0, periodic
     w = 20.0 + 10.0 * np.cos(np.radians(LAT)) ** 2
     ds = xr.Dataset(
         {
-            "qu": (("time", "lat", "lon"), grow[:, None, None] * qu, {"units": "kg m-1 s-1", "standard_name": "eastward_atmosphere_water_vapor_transport_across_unit_distance"}),
-            "qv": (("time", "lat", "lon"), grow[:, None, None] * qv, {"units": "kg m-1 s-1", "standard_name": "northward_atmosphere_water_vapor_transport_across_unit_distance"}),
-            "w": (("time", "lat", "lon"), (w[None] * (1 + 0.05 * np.arange(ntime))[:, None, None]), {"units": "kg m-2", "standard_name": "atmosphere_mass_content_of_water_vapor"}),
+            "qu": (("time", "lat", "lon"), grow[:, None, None] * qu, {"units": "kg m-1 s-1", "standard_name": _cf("qu")}),
+            "qv": (("time", "lat", "lon"), grow[:, None, None] * qv, {"units": "kg m-1 s-1", "standard_name": _cf("qv")}),
+            "w": (("time", "lat", "lon"), (w[None] * (1 + 0.05 * np.arange(ntime))[:, None, None]), {"units": "kg m-2", "standard_name": _cf("w")}),
         },
         coords={
             "time": ("time", times),
@@ -141,11 +147,11 @@ def level_dataset(nt=12, lon=None, lat=None, p=LEVELS_PA, ps=100000.0, u=10.0, v
     d4 = ("time", "plev", "lat", "lon")
     return xr.Dataset(
         {
-            "u": (d4, np.full(shape4, float(u)), {"units": "m s-1", "standard_name": "eastward_wind"}),
-            "v": (d4, np.full(shape4, float(v)), {"units": "m s-1", "standard_name": "northward_wind"}),
-            "q": (d4, np.array(q), {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+            "u": (d4, np.full(shape4, float(u)), {"units": "m s-1", "standard_name": _cf("u")}),
+            "v": (d4, np.full(shape4, float(v)), {"units": "m s-1", "standard_name": _cf("v")}),
+            "q": (d4, np.array(q), {"units": "kg kg-1", "standard_name": _cf("q")}),
             "ps": (("time", "lat", "lon"), np.full((nt, lat.size, lon.size), float(ps)),
-                   {"units": "Pa", "standard_name": "surface_air_pressure"}),
+                   {"units": "Pa", "standard_name": _cf("ps")}),
         },
         coords={
             "time": ("time", times),
