@@ -37,6 +37,10 @@ UNITS = [
     {"label": "kg/s", "value": "kg/s"},
     {"label": "m³/s", "value": "m3/s"},
 ]
+DRY_UNITS = [  # the dry-air budget: air, not liquid water (app/figures.py DRY_UNITS)
+    {"label": "hPa/day", "value": "hPa/day"},
+    {"label": "kg/s", "value": "kg/s"},
+]
 CORRECTION = [
     # the engine's default: applied for level inputs, which carry the dry-air flux
     {"label": "on: winds adjusted so dry air balances (level inputs)", "value": "default"},
