@@ -187,6 +187,9 @@ def _start(state, want: dict, key: str, again: bool = False):
                              lambda exc: problem(exc, "computing the budget"), again=again)
 
 
+start_budget = _start  # public: app/callbacks_records.py starts overlaid regions' budgets
+
+
 @callback(
     Output("want", "data"),
     Input("region-select", "value"),

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from .layout_attribution import insight_card
+from .layout_records import records_card
 
 CAUTION = (
     "Reanalysis budgets are estimates with known imbalances; they are not a substitute for "
@@ -248,6 +249,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             series_card,
             profile_card,
             insight_card(),
+            records_card(upload_limit_mb),
         ]),
         footer,
         dcc.Store(id="regions", data=initial_regions),
