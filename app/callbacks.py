@@ -160,8 +160,8 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
 # the budget: request → job (server threads) → panels
 # ---------------------------------------------------------------------------------------------
 def start_budget(state, want: dict, key: str, again: bool = False):
-    """Start (or find) the job computing ``want``'s budget (also for each field set of the
-    datasets panel, app/callbacks_attribution.py)."""
+    """Start (or find) the job computing ``want``'s budget; public: the overlaid regions of
+    app/callbacks_records.py and the field sets of app/callbacks_datasets.py start theirs here."""
     from budget.ledger import compute
     from budget.region import region_from_geojson
 
@@ -316,6 +316,26 @@ def show_budget(want, units, time_index, period, kind, _tick):
                 out = {k: (v if k in keep else no_update) for k, v in out.items()}
             return out
     return _panels(ds, want, name, units, time_index, period, kind or "vapour")
+
+
+@callback(
+    Output("units", "options"),
+    Output("units", "value"),
+    Input("budget-kind", "value"),
+    State("units", "value"),
+    prevent_initial_call=True,
+)
+def units_for_budget(kind, units):
+    """Rate units that fit the chosen budget: hPa/day or kg/s for dry air, mm/day, kg/s or
+    m³/s for water; kg/s is kept across the switch, any other unit becomes the first one."""
+    from .layout import DRY_UNITS, UNITS
+
+    dry = kind == "dry"
+    try:
+        value = figures.rate_unit(units, kind)
+    except ValueError:  # not a unit of either budget
+        value = figures.DRY_UNITS[0] if dry else "mm/day"
+    return (DRY_UNITS if dry else UNITS), value
 
 
 def _kind_options(ds) -> list[dict]:
