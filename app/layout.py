@@ -5,6 +5,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from .layout_attribution import insight_card
+from .layout_records import records_card
 
 CAUTION = (
     "Reanalysis budgets are estimates with known imbalances; they are not a substitute for "
@@ -78,7 +79,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         children=[
             html.Div([
                 html.Span("Fluxfence", className="wordmark"),
-                html.Span("water-vapour budget of a region", className="tagline"),
+                html.Span("water-vapour and dry-air budget of a region", className="tagline"),
             ]),
             html.Div(className="source-picker", children=[
                 html.Label("Fields", htmlFor="source"),
@@ -253,7 +254,8 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             html.Div(className="side", children=[regions_card, budget_card]),
             series_card,
             profile_card,
-            insight_card(),
+            insight_card(sources),
+            records_card(upload_limit_mb),
         ]),
         footer,
         dcc.Store(id="regions", data=initial_regions),

@@ -320,6 +320,7 @@ def _assemble(fields, region, st, times, sums: BlockSums, closed, options: Budge
         "method": method,
         "vertical_scheme": scheme,
         "roles": json.dumps(fields.roles),
+        "derived_roles": json.dumps(dict(getattr(fields, "derived", {}) or {})),
         "input_files": json.dumps([str(f) for f in fields.files]),
         "software": "fluxfence",
         "software_version": __version__,
