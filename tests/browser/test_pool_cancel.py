@@ -79,7 +79,7 @@ def test_cancel_a_pool_job_frees_the_worker_and_leaves_no_result(app_page, pool_
     # no stale result: the cancelled region stays cancelled, its panels say so
     assert st.results.get(job.key) is None
     page.click("#region-select")
-    page.get_by_role("option", name=first, exact=True).click()
+    page.get_by_role("dialog").get_by_role("option", name=first, exact=True).click()
     page.wait_for_function(
         "document.querySelector('#budget-message').textContent.includes('Cancelled')",
         timeout=15_000)
