@@ -79,7 +79,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         children=[
             html.Div([
                 html.Span("Fluxfence", className="wordmark"),
-                html.Span("water-vapour budget of a region", className="tagline"),
+                html.Span("water-vapour and dry-air budget of a region", className="tagline"),
             ]),
             html.Div(className="source-picker", children=[
                 html.Label("Fields", htmlFor="source"),
