@@ -151,6 +151,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
     region. With --each-feature: --out is a folder of one CSV per region plus summary.csv.
     """
 
+    from app import cli_attribution
     from budget import multi, terms
     from budget.export import NETCDF_SUFFIXES, encode, frame_csv_text
     from budget.outputs import Outputs
@@ -180,6 +181,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
         plan.file(f, "--out")
     if args.netcdf:
         plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES)
+    extra = cli_attribution.targets(args, plan)  # --events: one catalogue with a region column
     fields = open_fields()
     stencils = multi.compile_all(fields, regions, labels)  # every region checked before computing
     for w in fields.warnings:
@@ -188,7 +190,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
                                  closure=closure, stencils=stencils)
     for w in multi.warnings_of(budgets, ids):
         print(f"warning: {w}", file=sys.stderr)
-    stacked = multi.stack(budgets, ids) if (not args.each_feature and (out.suffix.lower() == ".nc" or args.netcdf or tables)) else None
+    stacked = multi.stack(budgets, ids) if (not args.each_feature and (out.suffix.lower() == ".nc" or args.netcdf or tables or extra)) else None
     summary = multi.summary_frame(budgets, ids)
     with plan:
         if args.each_feature:
@@ -204,6 +206,8 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
             plan.stage(args.netcdf, encode(stacked, args.netcdf))
         if tables:
             write_tables(args, stacked, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
+        if extra:
+            cli_attribution.write_tables(args, stacked, extra, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
         if args.each_feature:
             summary.insert(1, "file", [f.name for f in files[:-1]])
             plan.stage(files[-1], frame_csv_text(summary))
