@@ -260,6 +260,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         footer,
         dcc.Store(id="regions", data=initial_regions),
         dcc.Store(id="vertices", data=[]),
+        dcc.Store(id="map-refused", data=None),  # when a drawing was refused (app/regions.py)
         dcc.Store(id="upload-held", data=None),
         dcc.Store(id="want", data=None),
         dcc.Interval(id="budget-poll", interval=300, disabled=True),

@@ -1,18 +1,14 @@
-"""When the map is drawn again (app/callbacks.py draw_map), called as Dash calls it.
+"""When the map is drawn again (app/callbacks.py draw_map, app/regions.py drawn_on_map).
 
-Dash's own recipe for unit-testing a callback: run it in a copied context with
-``dash._callback_context.context_value`` set to the inputs that fired (Dash documentation,
-"Unit testing callbacks").  Choosing a region clears the region message; that alone must not
-rebuild the map (140 KB on the path from a region change to its budget), while a message that
-says a drawing was refused must (the refused shape is wiped off the map).
+The map listens to the region list, the chosen region, the clicked vertices and a stamp that
+app/regions.py sets only when a drawing on the map was refused (the drawn shape must be wiped
+off). It does not listen to the region message, which every region change rewrites: a second
+map request for one change would cost a 140 KB figure on the path from the change to its
+budget, and Dash keeps only the answer of the later request.
 """
 
-from contextvars import copy_context
-
 import pytest
-from dash._callback_context import context_value
-from dash._utils import AttributeDict
-from dash.exceptions import PreventUpdate
+from dash import no_update
 
 
 @pytest.fixture(scope="module")
@@ -25,23 +21,25 @@ def dashboard(tmp_path_factory):
     state.current().shutdown()
 
 
-def _draw(fired: list[str], message: str):
+def test_a_refused_drawing_is_stamped_and_an_accepted_one_is_not(dashboard):
+    from app.regions import drawn_on_map
+
+    flat = {"shapes": [{"type": "rect", "x0": 2.0, "x1": 2.0, "y0": 41.0, "y1": 48.0}]}
+    answer = drawn_on_map(flat, [])
+    assert answer["regions"] is no_update and "error" in answer["message_class"]
+    assert isinstance(answer["refused"], float)
+    box = {"shapes": [{"type": "rect", "x0": 2.0, "x1": 12.0, "y0": 41.0, "y1": 48.0}]}
+    answer = drawn_on_map(box, [])
+    assert [r["name"] for r in answer["regions"]] == ["Box 1"] and answer["refused"] is no_update
+
+
+def test_the_map_is_drawn_with_the_chosen_region_on_top(dashboard):
     from app.callbacks import draw_map
+    from app.regions import drawn_on_map
 
-    def run():
-        context_value.set(AttributeDict(triggered_inputs=[{"prop_id": p, "value": None} for p in fired]))
-        return draw_map("0", "ivt", 0, ["on"], [], None, [], "drawrect", message)
-
-    return copy_context().run(run)
-
-
-def test_a_cleared_message_alone_does_not_redraw_the_map(dashboard):
-    with pytest.raises(PreventUpdate):
-        _draw(["region-message.children"], "")
-
-
-def test_a_refusal_message_or_a_region_change_redraws_it(dashboard):
-    fig, label = _draw(["region-message.children"], "The outline crosses itself at vertex 3.")
-    assert fig.data and "step 1 of" in label
-    fig, _ = _draw(["regions.data", "region-select.value", "region-message.children"], "")
-    assert fig.data
+    box = {"shapes": [{"type": "rect", "x0": 2.0, "x1": 12.0, "y0": 41.0, "y1": 48.0}]}
+    regions = drawn_on_map(box, [])["regions"]
+    fig, label = draw_map("0", "ivt", 0, ["on"], regions, regions[0]["id"], [], "drawrect", None)
+    active = [t for t in fig.data if t.name == "region: Box 1" and t.mode == "lines+markers"]
+    assert active and min(active[0].x) == 2.0 and max(active[0].y) == 48.0
+    assert "step 1 of" in label

@@ -342,3 +342,15 @@ def test_a_region_change_draws_the_map_once(app_page, sample):
     names = page.evaluate("() => document.querySelector('#map .js-plotly-plot')._fullData"
                           ".map(t => t.name)")
     assert any("Typed box 1" in str(n) for n in names), names
+
+    # choosing another region from the list: the map is sent once more and draws that region
+    # as the chosen one (a second, later request for the same change would replace the first)
+    posts.clear()
+    page.click("#region-select")
+    page.get_by_role("dialog").get_by_role("option", name="Sample basin (invented)").click()
+    wait_for_series(page, "Sample basin (invented)")
+    page.wait_for_timeout(800)
+    assert len([p for p in posts if "..map.figure..." in p]) == 1
+    chosen = page.evaluate("() => document.querySelector('#map .js-plotly-plot')._fullData"
+                           ".filter(t => t.mode === 'lines+markers').map(t => t.name)")
+    assert chosen == ["region: Sample basin (invented)"], chosen
