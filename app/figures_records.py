@@ -144,6 +144,14 @@ def flagged_counts(ds) -> list[tuple[str, int]]:
     return sorted(((str(k), int(n)) for k, n in counts.items()), key=lambda kv: (-kv[1], kv[0]))
 
 
+def flagged_text(ds) -> str:
+    """The line under a period table: values the plausibility checks flagged and accepted,
+    per input variable, over the whole computed record."""
+    counts = flagged_counts(ds)
+    return ("Values flagged by the plausibility checks and accepted (whole record): "
+            + (", ".join(f"{var}: {n:,}" for var, n in counts) if counts else "none"))
+
+
 def period_figure(ds, frame, term: str, name: str, choice: str) -> go.Figure:
     """The chosen term by period: bars of the period means (mm/day); periods with low coverage
     are marked, not drawn as values.  For "event", the per-step series and its record mean."""
