@@ -115,8 +115,10 @@ def overlay(got: Gathered, variable: str, name: str):
 )
 def show_datasets(chosen, variable, want, _tick):
     title = "Datasets side by side"
-    if not want or not want.get("key"):
+    if not want:
         return empty_figure("Draw a region on the map, then choose field sets to compare."), "", "notice", True, title
+    if not want.get("key"):  # the request itself was refused (app/callbacks.py request_budget)
+        return empty_figure("No comparison."), want.get("problem", ""), "notice error", True, title
     name = want.get("name") or "the region"
     title = f"{title} — {name}"
     chosen = [str(c) for c in (chosen or [])]

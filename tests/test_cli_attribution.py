@@ -160,3 +160,20 @@ def test_datasets_input_as_output_refused(demo, tmp_path, capsys, monkeypatch):
     err = capsys.readouterr().err
     assert code != 0 and "one of the inputs" in err and len(err.strip().splitlines()) == 1
     assert (d / "moist.nc").read_bytes() == before
+
+
+@pytest.mark.parametrize("extra", [["--layers", "1000,850,700"], ["--ar-threshold", "300"]])
+def test_many_regions_refuse_options_they_would_ignore(demo, tmp_path, capsys, extra):
+    # many-region runs (budget.multi) carry the default attribution only: an option that would
+    # be silently ignored is refused with one sentence instead
+    import json
+
+    from tests.test_multi import collection
+
+    d, paths = demo
+    regions = tmp_path / "three.geojson"
+    regions.write_text(json.dumps(collection()))
+    code = main(["run", paths.levels, "--region", regions, "--out", tmp_path / "long.csv", "--quiet", *extra])
+    err = capsys.readouterr().err
+    assert code != 0 and code != 70 and "--feature" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "long.csv").exists()
