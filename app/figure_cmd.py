@@ -65,7 +65,11 @@ def invented_inputs(paths, region_name: str = "") -> bool:
     """Whether the inputs say they are invented (the sample's global attributes say so)."""
     if "invented" in region_name.lower():
         return True
+    from budget.grib import is_grib
+
     for path in paths:
+        if is_grib(str(path)):
+            continue  # never the sample; and xarray would write cfgrib's index beside the input
         try:
             with xr.open_dataset(path) as ds:
                 text = " ".join(str(ds.attrs.get(k, "")) for k in ("title", "comment", "institution"))

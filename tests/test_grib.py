@@ -605,10 +605,18 @@ def test_report_map_of_the_lambert_nam_file_is_drawn_in_lonlat(tmp_path):
     assert view["ivt"].dims == ("lat", "lon")
     assert float(view["lat"].min()) == pytest.approx(float(np.min(fields.lat)))
     assert float(view["lon"].min()) == pytest.approx(float(np.min((np.asarray(fields.lon) + 180) % 360 - 180)), abs=1e-6)
+    import shutil
+
+    inputs = tmp_path / "in"
+    inputs.mkdir()
+    nam = inputs / NAM.name
+    shutil.copy(NAM, nam)
     out = tmp_path / "nam_map.png"
     r = subprocess.run(
-        [sys.executable, "-m", "app.cli", "figure", str(NAM), "--bbox", "-105,35,-90,45", "--layout", "map", "--out", str(out)],
+        [sys.executable, "-m", "app.cli", "figure", str(nam), "--bbox", "-105,35,-90,45", "--layout", "map", "--out", str(out)],
         capture_output=True, text=True, timeout=600,
     )
     assert r.returncode == 0, r.stderr
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # nothing written beside the input (cfgrib's index goes to a private temporary folder)
+    assert [p.name for p in inputs.iterdir()] == [NAM.name]
