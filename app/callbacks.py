@@ -41,6 +41,15 @@ def _trigger():
     except MissingCallbackContextException:
         return None
 
+def _triggered() -> set:
+    """Every "id.prop" that fired this callback (empty outside a request)."""
+    from dash.exceptions import MissingCallbackContextException
+
+    try:
+        return set(ctx.triggered_prop_ids)
+    except MissingCallbackContextException:
+        return set()
+
 # ---------------------------------------------------------------------------------------------
 # time: slider, play/pause
 # ---------------------------------------------------------------------------------------------
@@ -137,6 +146,10 @@ def _color_range(state, source_id, field, snap, fields):
     Input("region-message", "children"),  # a refused drawing is cleared from the map
 )
 def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool, _msg):
+    if not _msg and _triggered() == {"region-message.children"}:
+        # a message cleared (choosing a region does that): nothing refused to wipe off the
+        # map, so no second 140 KB map for one region change
+        raise PreventUpdate
     try:
         state = current()
         fields = state.fields(source_id)

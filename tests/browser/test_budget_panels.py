@@ -324,3 +324,21 @@ def test_panels_are_greyed_and_named_while_a_budget_computes(app_page, sample, p
     for panel in PANELS:  # no longer computing: no longer greyed
         assert after[panel]["opacity"] > 0.9 and "grayscale" not in after[panel]["filter"], (
             panel, after[panel])
+
+
+def test_a_region_change_draws_the_map_once(app_page, sample):
+    """Choosing a region clears the region message; that alone must not send the map again
+    (140 KB and a redraw, on the path from a region change to its budget)."""
+    page = app_page
+    posts = []
+    page.on("request", lambda r: posts.append(r.post_data or "")
+            if r.url.split("?")[0].endswith("/_dash-update-component") else None)
+    type_box(page, 2, 42, 7, 46)
+    wait_for_series(page, "Typed box 1")
+    page.wait_for_timeout(800)  # any late request has gone out
+    maps = [p for p in posts if "..map.figure..." in p]
+    assert len(maps) == 1, [p[:120] for p in maps]
+    # the map shows the new region (its outline is on the active layer)
+    names = page.evaluate("() => document.querySelector('#map .js-plotly-plot')._fullData"
+                          ".map(t => t.name)")
+    assert any("Typed box 1" in str(n) for n in names), names
