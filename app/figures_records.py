@@ -11,7 +11,6 @@ numbers it shows.
 from __future__ import annotations
 
 import json
-import math
 
 import numpy as np
 import pandas as pd
@@ -381,7 +380,3 @@ def overlay_figure(series: list[tuple[str, object]], term: str = "p_minus_e",
 def _escape(text: str) -> str:
     """Region names are user text: no markup reaches Plotly's HTML-like labels."""
     return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-
-
-def finite(value) -> bool:
-    return value is not None and math.isfinite(float(value))
