@@ -431,7 +431,10 @@ def figures_table(ds, units, lo, hi, kind, name, period_text):
         html.Tr([html.Td(r["term"]), html.Td(r["mean"], className="num"),
                  html.Td(r["total"], className="num")]) for r in rows
     ])
-    out = [html.Table([caption, head, body], className="totals")]
+    from .figures_records import flagged_text  # the plausibility counts (issue 12)
+
+    foot = html.Tfoot(html.Tr(html.Td(flagged_text(ds), colSpan=3, className="flag-counts")))
+    out = [html.Table([caption, head, body, foot], className="totals")]
     if edges:
         ehead = html.Thead(html.Tr([html.Th("edge"), html.Th("mean import"),
                                     html.Th("direction")]))

@@ -95,12 +95,14 @@ def _cfgrib(path: str):
 
 def _index_path(path: str) -> str:
     """Where cfgrib keeps its message index: a private temporary folder, never beside the
-    input (an input is never an output). Keyed by the file's path, size and time stamp."""
+    input (an input is never an output). Keyed by the file's path, size, time stamp and the
+    keys read (EXTRA_KEYS)."""
     import hashlib
     import tempfile
 
     st = os.stat(path)
-    key = hashlib.sha256(f"{os.path.abspath(path)}|{st.st_size}|{st.st_mtime_ns}".encode()).hexdigest()[:24]
+    # the keys read are part of the index: an index built with other keys is refused by cfgrib
+    key = hashlib.sha256(f"{os.path.abspath(path)}|{st.st_size}|{st.st_mtime_ns}|{','.join(EXTRA_KEYS)}".encode()).hexdigest()[:24]
     folder = os.path.join(tempfile.gettempdir(), f"fluxfence-grib-index-{os.getuid()}")
     os.makedirs(folder, mode=0o700, exist_ok=True)
     return os.path.join(folder, key + ".{short_hash}.idx")

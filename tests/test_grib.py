@@ -589,3 +589,34 @@ def test_grib_rotated_pole_grid_keys_against_pyproj(tmp_path):
     fields = open_fields(str(path))
     assert fields.native_grid.dx == pytest.approx(1.0, rel=1e-6)
     assert fields.ds["u"].attrs["standard_name"] == "eastward_wind"  # uvRelativeToGrid 0 in the sample
+
+
+def test_report_map_of_the_lambert_nam_file_is_drawn_in_lonlat(tmp_path):
+    """`fluxfence figure` on NCEP grid 211 (2-D latitude/longitude): the map is drawn from the
+    display view (budget.maps.display_snapshot), whose extent is the file's own coordinates."""
+    import subprocess
+    import sys
+
+    from budget.fields import open_fields
+    from budget.maps import display_snapshot
+
+    fields = open_fields(str(NAM))
+    view = display_snapshot(fields, 0)
+    assert view["ivt"].dims == ("lat", "lon")
+    assert float(view["lat"].min()) == pytest.approx(float(np.min(fields.lat)))
+    assert float(view["lon"].min()) == pytest.approx(float(np.min((np.asarray(fields.lon) + 180) % 360 - 180)), abs=1e-6)
+    import shutil
+
+    inputs = tmp_path / "in"
+    inputs.mkdir()
+    nam = inputs / NAM.name
+    shutil.copy(NAM, nam)
+    out = tmp_path / "nam_map.png"
+    r = subprocess.run(
+        [sys.executable, "-m", "app.cli", "figure", str(nam), "--bbox", "-105,35,-90,45", "--layout", "map", "--out", str(out)],
+        capture_output=True, text=True, timeout=600,
+    )
+    assert r.returncode == 0, r.stderr
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # nothing written beside the input (cfgrib's index goes to a private temporary folder)
+    assert [p.name for p in inputs.iterdir()] == [NAM.name]
