@@ -24,7 +24,7 @@ from dash.exceptions import PreventUpdate
 
 from budget.errors import FluxfenceError
 
-from . import figures
+from . import figures, figures_map, figures_table
 from .jobs import CANCELLED, DONE, FAILED
 from .messages import iso, problem, slug
 from .state import current
@@ -108,14 +108,14 @@ def _color_range(state, source_id, field, snap, fields):
     come from up to 8 steps spread over the record (small grids), so the peak does not
     saturate the scale."""
     nt = fields.ds.sizes["time"]
-    lo, hi = figures.color_limits(figures.field_values(snap, field), field)
+    lo, hi = figures_map.color_limits(figures_map.field_values(snap, field), field)
     key = (str(source_id), field)
     seen = state.color_ranges.get(key)
     size = fields.ds["lat"].size * fields.ds["lon"].size * fields.ds.sizes.get("level", 1)
     if seen is None and size <= 2_000_000:
         for k in np.unique(np.linspace(0, nt - 1, min(nt, 8)).round().astype(int)):
-            klo, khi = figures.color_limits(
-                figures.field_values(state.snapshot(source_id, int(k)), field), field)
+            klo, khi = figures_map.color_limits(
+                figures_map.field_values(state.snapshot(source_id, int(k)), field), field)
             lo, hi = min(lo, klo), max(hi, khi)
     if seen is not None:
         lo, hi = min(lo, seen[0]), max(hi, seen[1])
@@ -145,7 +145,7 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
         snap = state.snapshot(source_id, t)
         label = iso(fields.ds["time"].values[t])
         field = field or "ivt"
-        fig = figures.map_figure(
+        fig = figures_map.map_figure(
             snap, field, coastline=state.coastline(),
             color_range=_color_range(state, source_id, field, snap, fields),
             regions=regions or [], active_region=selected, vertices=vertices or [],
@@ -405,7 +405,7 @@ def _panels(ds, want, name, units, time_index, period, kind) -> dict:
         series = figures.series_figure(ds, units, time_index=t, name=name, kind=kind)
         profile = figures.profile_figure(ds, t, name=name, time_label=when, kind=kind)
         curtain = figures.curtain_figure(ds, t, name=name, time_label=when, kind=kind)
-        table = figures_table(ds, units, lo, hi, kind, name, f"{iso(times[lo])} → "
+        table = budget_tables(ds, units, lo, hi, kind, name, f"{iso(times[lo])} → "
                               f"{iso(times[hi])}")
         warnings = json.loads(ds.attrs.get("warnings", "[]") or "[]")
         note = ("Note: " + " ".join(warnings)) if warnings else ""
@@ -420,10 +420,10 @@ def _panels(ds, want, name, units, time_index, period, kind) -> dict:
     return out
 
 
-def figures_table(ds, units, lo, hi, kind, name, period_text):
+def budget_tables(ds, units, lo, hi, kind, name, period_text):
     """The period table and the edge table of the chosen budget, titled with the region."""
-    rows = figures.period_rows(ds, units, lo, hi, kind=kind)
-    edges = figures.edge_rows(ds, units, lo, hi, kind=kind)
+    rows = figures_table.period_rows(ds, units, lo, hi, kind=kind)
+    edges = figures_table.edge_rows(ds, units, lo, hi, kind=kind)
     caption = html.Caption(f"{name} · {period_text}")
     head = html.Thead(html.Tr([html.Th("term"), html.Th("period mean"),
                                html.Th("period total")]))

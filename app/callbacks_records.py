@@ -22,7 +22,8 @@ from dash.exceptions import PreventUpdate
 from budget.errors import FluxfenceError, RequestError
 
 from . import figures_records as fr
-from .figures import empty_figure, number
+from .figures import empty_figure
+from .figures_table import number
 from .jobs import CANCELLED, FAILED
 from .messages import problem
 from .state import current

@@ -18,7 +18,8 @@ import plotly.graph_objects as go
 
 from budget import terms
 
-from .figures import ACCENT, FONT, GRID, INK, MUTED, PAPER, UNIT_LABELS, WARM, empty_figure, number
+from .figures import ACCENT, FONT, GRID, INK, MUTED, PAPER, UNIT_LABELS, WARM, empty_figure
+from .figures_table import number
 
 #: the period selector: (value, label); "event" is the whole loaded record
 PERIODS = (("event", "event"), ("day", "day"), ("month", "month"), ("season", "season"),

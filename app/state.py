@@ -200,7 +200,7 @@ class AppState:
         return snap
 
     def coastline(self):
-        from .figures import load_coastline
+        from .figures_map import load_coastline
 
         if self._coast is None:
             self._coast = load_coastline(Path(self.settings.assets) / "coastline_110m.geojson")

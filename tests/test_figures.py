@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from app import figures
+from app import figures, figures_map, figures_table
 
 
 def _snapshot(lon0=-30.0, nlon=31, nlat=21):
@@ -76,7 +76,7 @@ def _traces(fig, name):
 def test_map_ivt_has_units_arrows_coastline_and_active_outline():
     coast = [np.array([[-20.0, 30.0], [-10.0, 35.0], [0.0, 30.0]])]
     region = {"id": "r1", "name": "box", "rings": [([-20, -10, -10, -20], [25, 25, 35, 35])]}
-    fig = figures.map_figure(_snapshot(), "ivt", coastline=coast, regions=[region],
+    fig = figures_map.map_figure(_snapshot(), "ivt", coastline=coast, regions=[region],
                              active_region="r1", time_label="2031-03-01 00:00 UTC")
     heat = fig.data[0]
     assert heat.type == "heatmap"
@@ -95,7 +95,7 @@ def test_map_ivt_has_units_arrows_coastline_and_active_outline():
 
 def test_map_convergence_colour_limits_are_zero_centred_and_in_mm_per_day():
     snap = _snapshot()
-    fig = figures.map_figure(snap, "convergence")
+    fig = figures_map.map_figure(snap, "convergence")
     heat = fig.data[0]
     assert heat.zmid == 0
     assert heat.zmin == pytest.approx(-heat.zmax)
@@ -106,20 +106,20 @@ def test_map_convergence_colour_limits_are_zero_centred_and_in_mm_per_day():
 
 
 def test_map_pw_and_unknown_field():
-    fig = figures.map_figure(_snapshot(), "pw", arrows=False)
+    fig = figures_map.map_figure(_snapshot(), "pw", arrows=False)
     assert "kg m⁻²" in fig.data[0].colorbar.title.text
     assert not _traces(fig, "transport arrows")
     # transport arrows can lie over any field (e.g. over convergence)
-    assert _traces(figures.map_figure(_snapshot(), "convergence"), "transport arrows")
+    assert _traces(figures_map.map_figure(_snapshot(), "convergence"), "transport arrows")
     with pytest.raises(ValueError):
-        figures.map_figure(_snapshot(), "wind")
+        figures_map.map_figure(_snapshot(), "wind")
 
 
 def test_coastline_follows_a_0_to_360_grid():
     # a grid on 150..250 °E: a coastline point at −170 must appear at 190
     coast = [np.array([[-175.0, 40.0], [-170.0, 41.0]])]
     snap = _snapshot(lon0=150.0, nlon=101)
-    fig = figures.map_figure(snap, "pw", coastline=coast)
+    fig = figures_map.map_figure(snap, "pw", coastline=coast)
     xs = [x for x in _traces(fig, "coastline")[0].x if x is not None]
     assert 190.0 in xs and -170.0 not in xs
 
@@ -127,7 +127,7 @@ def test_coastline_follows_a_0_to_360_grid():
 def test_region_across_the_antimeridian_drawn_on_a_minus180_grid():
     region = {"id": "a", "name": "dateline", "rings": [([170, 190, 190, 170], [30, 30, 40, 40])]}
     snap = _snapshot(lon0=-180.0, nlon=360)
-    fig = figures.map_figure(snap, "ivt", regions=[region], active_region="a")
+    fig = figures_map.map_figure(snap, "ivt", regions=[region], active_region="a")
     outlines = _traces(fig, "region: dateline")
     # the ring and its copy shifted by −360° (so the part east of 180 shows at the west edge)
     assert len(outlines) == 2
@@ -188,7 +188,7 @@ def test_curtain_zero_centred_in_hpa_and_column_inputs_explained():
 
 def test_period_rows_mean_and_total_follow_one_rule():
     b = _budget(nt=5)
-    rows = {r["term"]: r for r in figures.period_rows(b, "mm/day", 1, 3)}
+    rows = {r["term"]: r for r in figures_table.period_rows(b, "mm/day", 1, 3)}
     pme = rows["P − E"]
     rate = b["p_minus_e"].values[1:4] * 86400
     assert pme["mean_value"] == pytest.approx(rate.mean())
@@ -200,7 +200,7 @@ def test_period_rows_mean_and_total_follow_one_rule():
     w = rows["Precipitable water (mean; start → end)"]
     assert w["total_value"] == pytest.approx(2.0)
 
-    rows = {r["term"]: r for r in figures.period_rows(b, "kg/s")}
+    rows = {r["term"]: r for r in figures_table.period_rows(b, "kg/s")}
     conv = rows["Convergence, boundary method"]
     seconds = 6 * 3600.0
     rate = b["boundary_convergence"].values * 1.2302e12
@@ -210,11 +210,11 @@ def test_period_rows_mean_and_total_follow_one_rule():
 
 def test_fixed_colour_range_is_used_and_convergence_stays_centred():
     snap = _snapshot()
-    fig = figures.map_figure(snap, "ivt", color_range=(0.0, 500.0))
+    fig = figures_map.map_figure(snap, "ivt", color_range=(0.0, 500.0))
     assert fig.data[0].zmax == 500.0
-    fig = figures.map_figure(snap, "convergence", color_range=(-3.0, 7.0))
+    fig = figures_map.map_figure(snap, "convergence", color_range=(-3.0, 7.0))
     assert (fig.data[0].zmin, fig.data[0].zmax) == (-7.0, 7.0)
-    lo, hi = figures.color_limits(figures.field_values(snap, "convergence"), "convergence")
+    lo, hi = figures_map.color_limits(figures_map.field_values(snap, "convergence"), "convergence")
     assert lo == -hi > -np.inf
 
 
@@ -235,32 +235,32 @@ def test_profile_numbers_vertices_of_a_many_sided_polygon():
 def test_numbers_for_the_table_are_readable():
     # one format everywhere: 4 significant digits, thousands grouped, never an exponent
     # (a display choice: common practice, no source)
-    assert figures.number(12570.4) == "12,570"
-    assert figures.number(6.4412) == "6.441"
-    assert figures.number(0.1402) == "0.1402"
-    assert figures.number(5.302e9) == "5,302,000,000"
-    assert figures.number(1.982e13) == "19,820,000,000,000"
-    assert figures.number(-44_195_550) == "-44,200,000"
-    assert figures.number(0.000123456) == "0.0001235"
-    assert figures.number(2.0) == "2" and figures.number(0.0) == "0"
-    assert figures.number(float("nan")) == "—"
-    assert "e" not in figures.number(3.3e-9)
+    assert figures_table.number(12570.4) == "12,570"
+    assert figures_table.number(6.4412) == "6.441"
+    assert figures_table.number(0.1402) == "0.1402"
+    assert figures_table.number(5.302e9) == "5,302,000,000"
+    assert figures_table.number(1.982e13) == "19,820,000,000,000"
+    assert figures_table.number(-44_195_550) == "-44,200,000"
+    assert figures_table.number(0.000123456) == "0.0001235"
+    assert figures_table.number(2.0) == "2" and figures_table.number(0.0) == "0"
+    assert figures_table.number(float("nan")) == "—"
+    assert "e" not in figures_table.number(3.3e-9)
 
 
 def test_edge_rows_mean_import_of_every_edge_in_boundary_order():
     b = _budget(nt=3)
     b["edge_import"] = (("time", "edge"), np.array([[1.0, -2.0, 3.0, 0.5]] * 3) * 1e7)
-    rows = figures.edge_rows(b, "kg/s")
+    rows = figures_table.edge_rows(b, "kg/s")
     assert [r["edge"] for r in rows] == ["S", "E", "N", "W"]
     assert rows[1]["mean_value"] == pytest.approx(-2e7) and rows[1]["direction"] == "out"
     assert rows[2]["mean"] == "30,000,000 kg/s"
     # in mm/day: the transport over the area × 86400 (CHECKS.md, conversions)
-    mm = figures.edge_rows(b, "mm/day")
+    mm = figures_table.edge_rows(b, "mm/day")
     assert mm[2]["mean_value"] == pytest.approx(3e7 / 1.2302e12 * 86400)
     # every edge is listed, however many (the table scrolls)
     n = 30
     many = b.drop_vars(["edge_import", "edge"]).assign_coords(
         edge=("edge", [f"edge {i + 1}" for i in range(n)]))
     many["edge_import"] = (("time", "edge"), np.ones((3, n)) * np.arange(n))
-    rows = figures.edge_rows(many, "kg/s")
+    rows = figures_table.edge_rows(many, "kg/s")
     assert [r["edge"] for r in rows] == [f"edge {i + 1}" for i in range(n)]

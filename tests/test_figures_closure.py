@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 import budget
-from app.figures import period_rows
+from app.figures_table import period_rows
 from sample_fields import ensure_sample
 
 
@@ -101,7 +101,7 @@ def test_the_units_selector_follows_the_budget():
 
 @pytest.mark.parametrize("unit", ["kg/s", "hPa/day"])
 def test_dry_edge_table_is_the_dry_air_import_of_each_edge(profiled, unit):
-    from app.figures import edge_rows
+    from app.figures_table import edge_rows
 
     ds = profiled
     rows = edge_rows(ds, unit, kind="dry")

@@ -235,7 +235,7 @@ def test_dry_air_mode_switches_edges_profile_curtain_and_rate_units(app_page, sa
     page.wait_for_function(
         "document.querySelector('#series .js-plotly-plot').layout.title.text"
         ".includes('rates in kg/s')", timeout=10_000)
-    from app.figures import number
+    from app.figures_table import number
 
     cells = page.locator("#budget-table .edge-scroll tbody tr td:nth-child(2)")
     means = ds["dry_air_edge_import"].mean("time").values
