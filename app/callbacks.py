@@ -187,6 +187,9 @@ def _start(state, want: dict, key: str, again: bool = False):
                              lambda exc: problem(exc, "computing the budget"), again=again)
 
 
+start_budget = _start  # public: app/callbacks_records.py starts overlaid regions' budgets
+
+
 @callback(
     Output("want", "data"),
     Input("region-select", "value"),
@@ -315,6 +318,26 @@ def show_budget(want, units, time_index, period, kind, _tick):
                 out = {k: (v if k in keep else no_update) for k, v in out.items()}
             return out
     return _panels(ds, want, name, units, time_index, period, kind or "vapour")
+
+
+@callback(
+    Output("units", "options"),
+    Output("units", "value"),
+    Input("budget-kind", "value"),
+    State("units", "value"),
+    prevent_initial_call=True,
+)
+def units_for_budget(kind, units):
+    """Rate units that fit the chosen budget: hPa/day or kg/s for dry air, mm/day, kg/s or
+    m³/s for water; kg/s is kept across the switch, any other unit becomes the first one."""
+    from .layout import DRY_UNITS, UNITS
+
+    dry = kind == "dry"
+    try:
+        value = figures.rate_unit(units, kind)
+    except ValueError:  # not a unit of either budget
+        value = figures.DRY_UNITS[0] if dry else "mm/day"
+    return (DRY_UNITS if dry else UNITS), value
 
 
 def _kind_options(ds) -> list[dict]:

@@ -149,7 +149,7 @@ def _compute_and_write(args, plan, partial, targets, tables, extra):
     from budget.region import load_region
 
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
-    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    fields = open_fields(args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end, rh_reference=args.rh_reference)
     for w in list(fields.warnings) + list(region.warnings):
         print(f"warning: {w}", file=sys.stderr)
     with plan:
@@ -189,7 +189,7 @@ def _compute(args, fields, region, partial):
 def _open_fields(args, files=None):
     from budget.fields import open_fields
 
-    return open_fields(files if files is not None else args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end)
+    return open_fields(files if files is not None else args.fields, var_map=_pairs(args.var, "--var"), units=_pairs(args.units, "--units"), start=args.start, end=args.end, rh_reference=args.rh_reference)
 
 
 def cmd_sample(args) -> int:
@@ -238,6 +238,9 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--start", help="first time (ISO 8601, UTC)")
     r.add_argument("--end", help="last time (ISO 8601, UTC)")
     r.add_argument("--var", action="append", metavar="ROLE=NAME", help=var_help())
+    r.add_argument("--rh-reference", choices=["water", "ice", "mixed"], default=None,
+                   help="what relative humidity is relative to when q is derived from it: water (default unless the "
+                        "file says ice), ice below 0 degC, or mixed (the ECMWF IFS blend, as ERA5's r is defined)")
     r.add_argument("--units", action="append", metavar="VAR=UNIT", help="units for a variable whose attribute is missing or wrong (e.g. q=g/kg, ua=knots, level=hPa)")
     r.add_argument("--method", choices=["boundary", "area"], default="boundary", help="primary convergence estimate (both are reported)")
     r.add_argument("--out", required=True, help="output file, .csv or .nc")

@@ -515,16 +515,37 @@ def _pressure_rate(values):
     return pa_s_to_hpa_day(residual_as_pressure_tendency(values))
 
 
+#: Rate units of the dry-air budget: the equivalent surface-pressure tendency, or the mass
+#: per second over the whole region (mm/day and m³/s are liquid water, not air).
+DRY_UNITS = ("hPa/day", "kg/s")
+
+
+def rate_unit(units: str, kind: str) -> str:
+    """The unit the rates of budget ``kind`` are shown in, from the selector's ``units``.
+
+    Water: mm/day, kg/s or m3/s; dry air: hPa/day or kg/s.  A unit of the other budget (the
+    selector not yet switched) falls back to that budget's first unit.
+    """
+    allowed = DRY_UNITS if kind == "dry" else tuple(UNIT_LABELS)
+    if units in allowed:
+        return units
+    if units in UNIT_LABELS or units in DRY_UNITS:
+        return allowed[0]
+    raise ValueError(f"unknown units {units!r}")
+
+
 def _rate_in(budget, var: str, units: str, kind: str, area: float):
-    """A rate series for display: dry air always in hPa/day, water in ``units``."""
+    """A rate series (kg m-2 s-1) for display in ``rate_unit(units, kind)``."""
     values = budget[var].values
     if kind == "dry":
+        if rate_unit(units, kind) == "kg/s":
+            return np.asarray(values, float) * area
         return np.asarray(_pressure_rate(values), float)
     return np.asarray(_convert(values, units, area), float)
 
 
 def _rate_unit(units: str, kind: str) -> str:
-    return "hPa/day" if kind == "dry" else UNIT_LABELS[units]
+    return terms.unit_label(rate_unit(units, kind))
 
 
 def _panel_title(what: str, name: str | None, time_label: str | None = None) -> dict:
@@ -656,8 +677,7 @@ def series_figure(budget, units: str = "mm/day", time_index: int | None = None,
                   name: str | None = None, kind: str = "vapour") -> go.Figure:
     """The column content and the budget rates over time (water rates in ``units``; dry air
     in hPa/day, the equivalent surface-pressure tendency)."""
-    if units not in UNIT_LABELS:
-        raise ValueError(f"unknown units {units!r}")
+    units = rate_unit(units, kind)
     view = _view(kind)
     region = name or budget.attrs.get("region_name") or "the region"
     unit = _rate_unit(units, kind)
@@ -794,8 +814,7 @@ def period_rows(budget, units: str = "mm/day", start: int = 0, end: int | None =
     for dry air).  Returns dicts with term, mean, total (text for the table) and
     mean_value / total_value (floats in the displayed units).
     """
-    if units not in UNIT_LABELS:
-        raise ValueError(f"unknown units {units!r}")
+    units = rate_unit(units, kind)
     _view(kind)
     start, end = _window(budget, start, end)
     area = float(budget.attrs["region_area_m2"])
@@ -891,14 +910,14 @@ def edge_rows(budget, units: str = "kg/s", start: int = 0, end: int | None = Non
     """Mean import through every edge over steps start..end (positive = coming in).
 
     Water: kg/s and m³/s are the transport itself; mm/day is the transport spread over the
-    region's area (what this edge alone adds to the convergence).  Dry air: kg/s.  Returns
+    region's area (what this edge alone adds to the convergence).  Dry air: kg/s, or hPa/day
+    (the surface-pressure tendency this edge alone would give the region).  Returns
     dicts with edge, mean (text), mean_value (displayed units), direction ("in" / "out"),
     one per edge in boundary order.
     """
     from budget.units import transport_to_rate
 
-    if units not in UNIT_LABELS:
-        raise ValueError(f"unknown units {units!r}")
+    units = rate_unit(units, kind)
     view = _view(kind)
     if view.edge not in budget:
         return []
@@ -906,7 +925,8 @@ def edge_rows(budget, units: str = "kg/s", start: int = 0, end: int | None = Non
     kg_s = np.asarray(budget[view.edge].values[start:end + 1], float).mean(axis=0)
     area = float(budget.attrs["region_area_m2"])
     if kind == "dry":
-        values, unit = kg_s, "kg/s"
+        unit = terms.unit_label(units)
+        values = kg_s if units == "kg/s" else np.asarray(_pressure_rate(kg_s / area), float)
     else:
         values = np.asarray(_convert(transport_to_rate(kg_s, area), units, area), float)
         unit = UNIT_LABELS[units]

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from .layout_attribution import insight_card
+from .layout_records import records_card
 
 CAUTION = (
     "Reanalysis budgets are estimates with known imbalances; they are not a substitute for "
@@ -35,6 +36,10 @@ UNITS = [
     {"label": "mm/day", "value": "mm/day"},
     {"label": "kg/s", "value": "kg/s"},
     {"label": "m³/s", "value": "m3/s"},
+]
+DRY_UNITS = [  # the dry-air budget: air, not liquid water (app/figures.py DRY_UNITS)
+    {"label": "hPa/day", "value": "hPa/day"},
+    {"label": "kg/s", "value": "kg/s"},
 ]
 CORRECTION = [
     # the engine's default: applied for level inputs, which carry the dry-air flux
@@ -74,7 +79,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         children=[
             html.Div([
                 html.Span("Fluxfence", className="wordmark"),
-                html.Span("water-vapour budget of a region", className="tagline"),
+                html.Span("water-vapour and dry-air budget of a region", className="tagline"),
             ]),
             html.Div(className="source-picker", children=[
                 html.Label("Fields", htmlFor="source"),
@@ -244,6 +249,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             series_card,
             profile_card,
             insight_card(),
+            records_card(upload_limit_mb),
         ]),
         footer,
         dcc.Store(id="regions", data=initial_regions),

@@ -329,10 +329,18 @@ def region_removed(_n, regions, selected):
 @callback(output={"name": ADDED["name"], "message": ADDED["message"],
                   "message_class": ADDED["message_class"]},
           inputs=dict(selected=Input("region-select", "value")),
-          state=dict(regions=State("regions", "data")), prevent_initial_call=True)
-def region_selected(selected, regions):
-    """Choosing a region clears messages about another one."""
+          state=dict(regions=State("regions", "data"), shown=State("region-message", "children")),
+          prevent_initial_call=True)
+def region_selected(selected, regions, shown=None):
+    """Choosing a region clears messages about another one.
+
+    A region just added comes selected with its own message ("Added “name”…") and its name
+    set; leaving both alone also spares the map a second redraw (the map listens to the
+    message, and a second request would supersede the first one's drawing of the new region).
+    """
     name = next((r["name"] for r in regions or [] if r["id"] == selected), "")
+    if name and isinstance(shown, str) and f"“{name}”" in shown:
+        raise PreventUpdate
     return {"name": name, "message": "", "message_class": "notice"}
 
 

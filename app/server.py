@@ -22,9 +22,9 @@ from pathlib import Path
 import dash
 
 from budget.errors import RequestError
+from budget.fields.opening import FIELD_SUFFIXES  # the format table's own endings (NetCDF, Zarr, GRIB)
 
 ASSETS = Path(__file__).resolve().parent.parent / "assets"
-FIELD_SUFFIXES = (".nc", ".nc4", ".netcdf", ".zarr")
 UPLOAD_LIMIT_BYTES = 10 * 2**20  # a region file; anything larger gets a clear message
 REQUEST_LIMIT_BYTES = 64 * 2**20  # hard cap on any request body
 
@@ -69,7 +69,7 @@ def resolve_sources(paths=None, data_dir=None) -> list[dict]:
             sources.append({"id": str(len(sources)), "label": str(f.relative_to(root)),
                             "paths": [str(f.resolve())], "root": str(root.resolve())})
         if not found and not sources:
-            raise RequestError(f"No NetCDF (.nc) or Zarr (.zarr) fields under {str(root)!r}; "
+            raise RequestError(f"No NetCDF (.nc), Zarr (.zarr) or GRIB (.grib2, .grb) fields under {str(root)!r}; "
                                "put the files there or name them on the command line.")
     if not sources:
         from sample_fields import ensure_sample
@@ -105,7 +105,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2,
     records longer than ``long_steps`` time steps go to ``pool_workers`` persistent worker
     processes instead (app.pool).
     """
-    from . import callbacks, callbacks_attribution, callbacks_report, regions  # noqa: F401 - registers the callbacks
+    from . import callbacks, callbacks_attribution, callbacks_records, callbacks_report, regions  # noqa: F401 - registers the callbacks
     from .layout import build_layout
     from .state import Settings, Source, configure
 

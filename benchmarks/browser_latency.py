@@ -13,9 +13,7 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import statistics
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -24,7 +22,7 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
-from benchmarks.load_dashboard import _free_port, _wait_up  # noqa: E402
+from benchmarks.load_dashboard import served  # noqa: E402
 
 CHROMIUM = "/usr/bin/chromium"
 ARGS = ["--no-sandbox", "--disable-gpu", "--disable-dev-shm-usage",
@@ -82,20 +80,8 @@ def engine_times(repeats: int) -> list[float]:
 
 def measure(repeats: int = 5) -> dict:
     """Page and engine times on the same boxes, in seconds."""
-    port = _free_port()
-    url = f"http://127.0.0.1:{port}"
-    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "serve", "--port", str(port)],
-                            cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    try:
-        _wait_up(url, proc)
+    with served() as (url, _):
         page = page_times(url, repeats)
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
     engine = engine_times(repeats)
     return {"page_median_s": statistics.median(page), "page_max_s": max(page),
             "engine_median_s": statistics.median(engine), "engine_max_s": max(engine),

@@ -16,6 +16,7 @@ server is stopped at the end.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import socket
@@ -177,6 +178,26 @@ def _wait_up(url: str, proc, seconds: float = 120.0) -> None:
     raise SystemExit("the dashboard did not answer within two minutes")
 
 
+@contextlib.contextmanager
+def served(*options: str):
+    """``fluxfence serve`` on a free 127.0.0.1 port with ``options``: yields (url, process) once
+    the page answers, and stops the server on the way out."""
+    port = _free_port()
+    url = f"http://127.0.0.1:{port}"
+    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "serve", "--port", str(port), *options],
+                            cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        _wait_up(url, proc)
+        yield url, proc
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+
+
 def summarise(results: list[dict]) -> dict:
     import numpy as np
 
@@ -196,26 +217,12 @@ def main(argv=None) -> int:
     ap.add_argument("--job-threads", type=int, default=2)
     ap.add_argument("--give-up", type=float, default=120.0)
     args = ap.parse_args(argv)
-    port = _free_port()
-    url = f"http://127.0.0.1:{port}"
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "app.cli", "serve", "--port", str(port), "--workers",
-         str(args.workers), "--job-threads", str(args.job_threads)],
-        cwd=ROOT, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    try:
-        _wait_up(url, proc)
+    with served("--workers", str(args.workers), "--job-threads", str(args.job_threads)) as (url, proc):
         Page(url).budget(boxes(1)[0])  # the first budget opens the fields (a cold start)
         before = _rss_mib(proc.pid)
         summary = summarise(run_users(url, args.users, args.give_up))
         summary.update(rss_before_mib=before, rss_after_mib=_rss_mib(proc.pid),
                        workers=args.workers, job_threads=args.job_threads)
-    finally:
-        proc.terminate()
-        try:
-            proc.wait(10)
-        except subprocess.TimeoutExpired:
-            proc.kill()
     print(json.dumps(summary, indent=1))
     print(f"{summary['users']} users, each its own box on the sample: p50 "
           f"{summary['p50_s']:.2f} s, p95 {summary['p95_s']:.2f} s, max {summary['max_s']:.2f} s "

@@ -105,5 +105,7 @@ def variables(sums, st, options: AttributionOptions) -> tuple[dict, dict]:
 def ar_share(ds: xr.Dataset, weights=None) -> float:
     """The fraction of the period's inflow that crossed where IVT met the threshold."""
     w = np.ones(ds.sizes["time"]) if weights is None else np.asarray(weights, float)
+    if not np.any(w > 0):  # a single step covers no time: its share is that step's own
+        w = np.ones(ds.sizes["time"])
     fin = float(np.nansum(ds["inflow"].values * w))
     return float(np.nansum(ds["ar_inflow"].values * w) / fin) if fin > 0 else float("nan")

@@ -172,12 +172,12 @@ class Gatherer:
 
 # -- block sums ------------------------------------------------------------------------------
 #: Version of the BlockSums layout; a resume folder of another version is refused.
-BLOCK_FORMAT = 3
+BLOCK_FORMAT = 4
 
 _VERSION_KEY = "fluxfence_block_format"
 
 #: BlockSums fields whose last axis is the region's edges (a new per-edge sum goes here too).
-EDGE_FIELDS = ("edge", "w_edge", "ar_edge", "layer_edge")
+EDGE_FIELDS = ("edge", "w_edge", "dedge", "ar_edge", "layer_edge")
 
 
 @dataclass
@@ -200,6 +200,9 @@ class BlockSums:
     dadiv: np.ndarray | None = None  # dry-air divergence, area method, kg m-2 s-1
     mu: np.ndarray | None = None  # area-mean dry-air column mass, kg m-2
     mu_len: np.ndarray | None = None  # ∮ μ dl over open pieces, kg m-1
+    dedge: np.ndarray | None = None  # dry-air import per edge, kg s-1 (time, edge)
+    ddensity: np.ndarray | None = None  # dry-air import per unit length, kg m-1 s-1 (time, piece; profiles)
+    dcurtain: np.ndarray | None = None  # the same per unit pressure, kg m-1 s-1 Pa-1 (time, level, piece)
     # total water (budget.closure, inputs with condensate)
     timp: np.ndarray | None = None
     tadiv: np.ndarray | None = None

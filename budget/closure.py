@@ -23,6 +23,7 @@ variables (SI; the CSV gives mm/day and hPa/day):
 dry_air_mass                       kg m-2      area-mean dry-air column mass (1/g)∫(1−q)dp
 dry_air_tendency                   kg m-2 s-1  its tendency (centred differences)
 dry_air_import                     kg s-1      dry-air mass import through the boundary
+dry_air_edge_import                kg s-1      the same through each edge (time, edge)
 dry_air_convergence                kg m-2 s-1  area-mean dry-air convergence (primary method)
 dry_air_residual                   kg m-2 s-1  dry_air_tendency − dry_air_convergence (files' winds)
 dry_air_residual_pressure          Pa s-1      the same as a surface-pressure tendency
@@ -120,8 +121,12 @@ def open_lengths(st) -> np.ndarray:
     return lw
 
 
-def block_sums(st, extra: dict | None, w: np.ndarray) -> dict:
-    """Per-time-step sums of the closure terms for one block: BlockSums fields by name."""
+def block_sums(st, extra: dict | None, w: np.ndarray, profiles: bool = False) -> dict:
+    """Per-time-step sums of the closure terms for one block: BlockSums fields by name.
+
+    Dry air through the boundary: the net import, the import per edge (their sum is the net
+    import) and, with ``profiles``, the import per unit length of each piece (files' winds).
+    """
     lw = open_lengths(st)
     res = {"w_edge": (st.edge_sum @ (lw[:, None] * (st.interp @ w.T))).T}  # ∮_edge W dl
     if not extra:
@@ -132,7 +137,11 @@ def block_sums(st, extra: dict | None, w: np.ndarray) -> dict:
 
     if "mu" in extra:
         fu, fv, mu = extra["fu"], extra["fv"], extra["mu"]
-        res["dimp"] = import_(fu, fv)
+        dflux = st.bu @ fu.T + st.bv @ fv.T  # outward dry-air flux per piece, (piece, time)
+        res["dimp"] = -dflux.sum(axis=0)
+        res["dedge"] = -(st.edge_sum @ dflux).T
+        if profiles:
+            res["ddensity"] = -dflux.T / st.piece_length
         res["dadiv"] = fu @ st.div_u + fv @ st.div_v
         res["mu"] = mu @ st.cover / st.area
         res["mu_len"] = lw @ (st.interp @ mu.T)
@@ -302,6 +311,8 @@ def _dry_air(out: Closed, st, times, sums, method, summary):
         "dry_air_mass": _var("dry_air_mass", mu),
         "dry_air_tendency": _var("dry_air_tendency", dtend),
         "dry_air_import": _var("dry_air_import", sums.dimp),
+        "dry_air_edge_import": xr.Variable(("time", "edge"), np.asarray(sums.dedge, float),
+                                           terms.attrs("dry_air_edge_import")),
         "dry_air_convergence": _var("dry_air_convergence", dconv, method=f"{method} method, files' winds"),
         "dry_air_residual": _var("dry_air_residual", resid),
         "dry_air_residual_pressure": _var("dry_air_residual_pressure", pressure),

@@ -67,6 +67,18 @@ def _discharge_column(df: pd.DataFrame, tcol: str, column: str | None, where: st
     raise RequestError(f"The gauge file {where} has several columns ({', '.join(map(str, others))}); say which holds discharge with --discharge-column.")
 
 
+def discharge_columns(path) -> list[str]:
+    """The columns of a gauge CSV that may hold discharge (all but its time column), for a
+    column picker; reads the header only."""
+    where = repr(str(path))
+    try:
+        df = pd.read_csv(path, dtype=str, nrows=0, comment="#")
+    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise RequestError(f"The gauge file {where} could not be read as CSV ({str(exc).splitlines()[0]}); give a CSV with a time column and a discharge column in m3/s.") from None
+    tcol = _time_column(df, where)
+    return [str(c) for c in df.columns if c != tcol]
+
+
 def read_gauge(path, column: str | None = None) -> Gauge:
     """Read a gauge CSV: a time column (ISO 8601; named time/date or the first) and discharge in m³/s.
 

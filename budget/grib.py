@@ -42,13 +42,15 @@ EXTRA_KEYS = [
     "angleOfRotationInDegrees",
 ]
 MAGIC = b"GRIB"
+#: File name endings taken as GRIB without reading the file (a file starting with "GRIB" is too).
+SUFFIXES = (".grib", ".grb", ".grib1", ".grib2", ".grb1", ".grb2")
 
 
 def is_grib(path: str) -> bool:
     """True when the file starts like a GRIB message (or is named like one)."""
     if os.path.isdir(path):
         return False
-    if path.lower().endswith((".grib", ".grb", ".grib1", ".grib2", ".grb1", ".grb2")):
+    if path.lower().endswith(SUFFIXES):
         return True
     try:
         with open(path, "rb") as f:

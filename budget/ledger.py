@@ -102,6 +102,8 @@ def read_columns(fields, st: Stencil, ds, tslice, profiles: bool, keep_levels: b
     qv = column_integral(q * v, dp, level_axis=1)
     w = column_integral(q, dp, level_axis=1)
     levels = {"qu": q * u, "qv": q * v, "dp": dp, "ps": ps} if (profiles or keep_levels) else None
+    if profiles:  # the dry-air curtain: (1 − q) V = V − q V per level (budget.mass)
+        levels.update(u=u, v=v)
     extra = closure.level_extras(ds, g, q, u, v, dp, qu, qv, w, chk)
     return Columns(qu, qv, w, ps=ps, levels=levels, extra=extra, flagged=chk.counts)
 
@@ -125,30 +127,33 @@ def block_sums(fields, st: Stencil, c: Columns, profiles: bool = False,
         adiv=c.qu @ st.div_u + c.qv @ st.div_v,
         w=c.w @ st.cover / st.area,
     )
-    sums.update(closure.block_sums(st, c.extra, c.w))
+    sums.update(closure.block_sums(st, c.extra, c.w, profiles=profiles))
     sums.update(attribution.block_sums(st, fields.vertical, attribute, c.qu, c.qv, c.levels))
     if profiles:
         sums["density"] = -flux / st.piece_length
-        if c.levels is not None:
-            sums["curtain"], sums["curtain_dp"] = _curtain(st, c.levels)
+        lv = c.levels
+        if lv is not None:
+            sums["curtain"], sums["curtain_dp"] = _curtain(st, lv["qu"], lv["qv"], lv["dp"])
+            if "u" in lv and sums.get("dimp") is not None:  # dry air, (1 − q) V per level
+                sums["dcurtain"], _ = _curtain(st, lv["u"] - lv["qu"], lv["v"] - lv["qv"], lv["dp"])
     return BlockSums(**sums, flagged=dict(c.flagged or {}))
 
 
-def _curtain(st: Stencil, lv: dict):
-    """Import per unit length per unit pressure at each boundary piece and level, and the
-    layer thickness there: (time, level, piece) each."""
+def _curtain(st: Stencil, xu: np.ndarray, xv: np.ndarray, dp: np.ndarray):
+    """Import per unit length per unit pressure at each boundary piece and level of the flux
+    density (xu, xv) per level (q V for vapour, (1 − q) V for dry air), and the layer
+    thickness there: (time, level, piece) each."""
     fu, fv = st.boundary.normal_factors()
     length = st.piece_length
-    nb, nlev, npiece = lv["qu"].shape[0], lv["qu"].shape[1], length.size
-    dp = lv["dp"]
+    nb, nlev, npiece = xu.shape[0], xu.shape[1], length.size
 
     def to_pieces(a):  # (time, level, cell) -> (time, level, piece) by bilinear interpolation
         return (st.interp @ a.reshape(-1, a.shape[-1]).T).T.reshape(nb, nlev, npiece)
 
     # layer contributions (1/g) x Δp interpolated to the pieces, so that the curtain times the
     # layer thickness sums exactly to the import per unit length
-    lay_u = to_pieces(np.where(dp > 0, lv["qu"] * dp, 0.0))
-    lay_v = to_pieces(np.where(dp > 0, lv["qv"] * dp, 0.0))
+    lay_u = to_pieces(np.where(dp > 0, xu * dp, 0.0))
+    lay_v = to_pieces(np.where(dp > 0, xv * dp, 0.0))
     dp_p = to_pieces(dp)
     layer = -(fu * lay_u + fv * lay_v) / length / STANDARD_GRAVITY  # kg m-1 s-1 per layer
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -282,6 +287,11 @@ def _profile_variables(sums: BlockSums, st: Stencil, ds, dv: dict, coords: dict)
         dv["normal_flux_density"] = xr.Variable(dims, sums.curtain, terms.attrs("normal_flux_density"))
         dv["layer_thickness"] = xr.Variable(dims, sums.curtain_dp, terms.attrs("layer_thickness"))
         coords["level"] = ("level", ds["level"].values, dict(ds["level"].attrs))
+    if sums.ddensity is not None:  # dry air (level inputs), files' winds
+        dv["dry_air_import_density"] = xr.Variable(("time", "piece"), sums.ddensity, terms.attrs("dry_air_import_density"))
+    if sums.dcurtain is not None:
+        dv["dry_air_normal_flux_density"] = xr.Variable(("time", "level", "piece"), sums.dcurtain,
+                                                        terms.attrs("dry_air_normal_flux_density"))
 
 
 def budget_warnings(fields, st, times, sums: BlockSums, closed) -> list:
@@ -337,6 +347,7 @@ def shared_attrs(fields, method: str, sums: BlockSums) -> dict:
         "method": method,
         "vertical_scheme": scheme,
         "roles": json.dumps(fields.roles),
+        "derived_roles": json.dumps(dict(getattr(fields, "derived", {}) or {})),
         "input_files": json.dumps([str(f) for f in fields.files]),
         "software": "fluxfence",
         "software_version": __version__,
@@ -350,6 +361,7 @@ def mark_correction(out: xr.Dataset, sentence: str) -> None:
     """Say on each vapour variable whether the mass correction is in it."""
     for name in ("vapour_import", "edge_import", "boundary_convergence", "area_convergence", "vapour_convergence", "p_minus_e"):
         out[name].attrs["mass_correction"] = sentence
-    for name in ("inflow", "outflow", "boundary_import_density", "normal_flux_density"):
+    for name in ("inflow", "outflow", "boundary_import_density", "normal_flux_density", "dry_air_import",
+                 "dry_air_edge_import", "dry_air_import_density", "dry_air_normal_flux_density"):
         if name in out:
             out[name].attrs["mass_correction"] = "not included: from the files' winds"

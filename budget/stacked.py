@@ -178,8 +178,9 @@ def block_sums(op: StackedStencil, c, vertical=None, attribute=None) -> BlockSum
 
     # dry air, total water and the files' P and E, as closure.block_sums per region
     if "mu" in extra:
-        sums.update(dimp=import_("fu", "fv"), dadiv=divergence("fu", "fv"), mu=area_mean("mu"),
-                    mu_len=op.per_region(op.open_sum, p["mu"]))
+        dflux = op.fu[:, None] * p["fu"] + op.fv[:, None] * p["fv"]  # outward dry-air flux per piece
+        sums.update(dimp=-op.per_region(op.region_sum, dflux), dedge=-op.edges(op.edge_sum, dflux),
+                    dadiv=divergence("fu", "fv"), mu=area_mean("mu"), mu_len=op.per_region(op.open_sum, p["mu"]))
     if "tw" in extra:
         sums.update(timp=import_("tqu", "tqv"), tadiv=divergence("tqu", "tqv"), tw=area_mean("tw"),
                     tw_len=op.per_region(op.open_sum, p["tw"]))

@@ -111,3 +111,21 @@ def test_sample_layers_sum_to_the_column_and_reach_the_csv(sample_budget):
     assert (ds["ar_inflow"].values <= ds["inflow"].values * (1 + 1e-12)).all()
     assert (ds["boundary_mean_ivt"].values > 0).all()
     assert "ar_inflow_kg_s" in df.columns and "boundary_mean_ivt_kg_m_s" in df.columns
+
+
+def test_ar_share_of_a_single_step_is_that_steps_own():
+    # One time step covers no interval (budget.periods.INTEGRATION_RULE gives it zero length),
+    # yet the share of its inflow that crossed above the threshold is plain arithmetic:
+    # AR inflow / inflow (a GFS analysis is one such step).
+    import xarray as xr
+
+    from budget.attribution import ar_share
+    from budget.events import step_seconds
+
+    ds = xr.Dataset({"inflow": ("time", [4.0e8]), "ar_inflow": ("time", [1.0e8])},
+                    coords={"time": np.array(["2011-01-15T12"], "datetime64[ns]")})
+    assert ar_share(ds, step_seconds(ds["time"].values)) == pytest.approx(0.25)
+    two = xr.Dataset({"inflow": ("time", [4.0e8, 2.0e8]), "ar_inflow": ("time", [1.0e8, 0.0])},
+                     coords={"time": np.array(["2011-01-15T12", "2011-01-15T18"], "datetime64[ns]")})
+    # two equal intervals: (1e8 + 0) / (4e8 + 2e8)
+    assert ar_share(two, step_seconds(two["time"].values)) == pytest.approx(1 / 6)

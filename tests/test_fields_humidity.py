@@ -149,3 +149,35 @@ def test_relative_humidity_mapped_as_q_points_to_rh(tmp_path):
     with pytest.raises(FieldsError) as e:
         open_fields(write(as_form("rh"), tmp_path), var_map={"q": "r"})
     assert "--var rh=r" in str(e.value)
+
+
+def test_rh_against_the_ifs_mixed_phase_gives_the_analytic_q(tmp_path):
+    # RH written against the IFS mixed-phase saturation (IFS Documentation CY47R3, Part IV,
+    # chapter 12; formula written out in tests/test_humidity.py), at temperatures from -40 to
+    # +20 degC so that ice, blend and water all occur; rh_reference="mixed" must invert it.
+    from tests.test_humidity import ifs_mixed
+
+    ds = make_levels(ntime=3)
+    e = _vapour_pressure(ds)
+    t = (233.15 + 60.0 * ds["plev"] / 1000.0).broadcast_like(ds["hus"]).transpose(*ds["hus"].dims)
+    es = np.vectorize(ifs_mixed)(t.values)
+    out = ds.drop_vars("hus")
+    out["r"] = _new(e / es * 100.0, units="%", standard_name="relative_humidity")
+    out["t"] = _new(t, units="K", standard_name="air_temperature")
+    path = write(out, tmp_path)
+    f = open_fields(path, rh_reference="mixed")
+    check_levels_formula(f, q_tol=1e-9)
+    assert "IFS mixed phase" in f.derived["q"] and "IFS Documentation CY47R3" in f.derived["q"]
+    # read over water instead (the default), the cold levels' q comes out larger: es_w > es_mixed
+    water = open_fields(path)
+    assert "with respect to water" in water.derived["q"]
+    ratio = water.ds["q"].values / f.ds["q"].values
+    assert ratio.max() > 1.1 and ratio.min() > 0.999  # never smaller: es_w >= es_mixed (to 0.1 %)
+
+
+def test_unknown_rh_reference_is_one_sentence(tmp_path):
+    from budget.errors import RequestError
+
+    with pytest.raises(RequestError) as e:
+        open_fields(write(as_form("rh"), tmp_path), rh_reference="liquid")
+    assert "water, ice, mixed" in str(e.value) and "--rh-reference" in str(e.value)

@@ -62,3 +62,90 @@ def test_dry_air_rows_in_kg_per_s_and_hpa_per_day(sample_budget):
     vapour = float(ds["pw_tendency"].mean()) * to_hpa_day
     assert both == pytest.approx(tend + vapour, rel=1e-9, abs=1e-12)
     assert rows["Mass-correction speed (outward)"]["mean"].endswith("cm/s")
+
+
+# ---------------------------------------------------------------------------------------------
+# the dry-air budget on screen: edge table, profile, curtain and its rate units
+# ---------------------------------------------------------------------------------------------
+#: a column-mass rate R (kg m-2 s-1) as a surface-pressure tendency: R·g Pa/s (hydrostatic
+#: balance, standard gravity 9.80665 m s-2, CGPM 1901 / ISO 80000-3), × 86400 / 100 in hPa/day
+TO_HPA_DAY = 9.80665 * 86400 / 100
+
+
+@pytest.fixture(scope="module")
+def profiled():
+    s = ensure_sample()
+    return budget.compute(budget.open_fields(s.levels), budget.load_region(path=s.basin), profiles=True)
+
+
+def test_dry_rate_units_fit_air_not_liquid_water():
+    from app.figures import rate_unit
+
+    assert rate_unit("hPa/day", "dry") == "hPa/day" and rate_unit("kg/s", "dry") == "kg/s"
+    # units of liquid water left on the selector fall back to the budget's own first unit
+    assert rate_unit("mm/day", "dry") == "hPa/day" and rate_unit("m3/s", "dry") == "hPa/day"
+    assert rate_unit("hPa/day", "vapour") == "mm/day" and rate_unit("m3/s", "vapour") == "m3/s"
+    with pytest.raises(ValueError):
+        rate_unit("furlongs", "dry")
+
+
+def test_the_units_selector_follows_the_budget():
+    from app.callbacks import units_for_budget
+
+    options, value = units_for_budget("dry", "mm/day")
+    assert [o["value"] for o in options] == ["hPa/day", "kg/s"] and value == "hPa/day"
+    assert units_for_budget("dry", "kg/s")[1] == "kg/s"  # kg/s fits both: kept
+    options, value = units_for_budget("vapour", "hPa/day")
+    assert [o["value"] for o in options] == ["mm/day", "kg/s", "m3/s"] and value == "mm/day"
+
+
+@pytest.mark.parametrize("unit", ["kg/s", "hPa/day"])
+def test_dry_edge_table_is_the_dry_air_import_of_each_edge(profiled, unit):
+    from app.figures import edge_rows
+
+    ds = profiled
+    rows = edge_rows(ds, unit, kind="dry")
+    assert [r["edge"] for r in rows] == [str(e) for e in ds["edge"].values]
+    kg_s = ds["dry_air_edge_import"].mean("time").values
+    area = ds.attrs["region_area_m2"]
+    expected = kg_s if unit == "kg/s" else kg_s / area * TO_HPA_DAY
+    np.testing.assert_allclose([r["mean_value"] for r in rows], expected, rtol=1e-12)
+    assert all(r["mean"].endswith(unit) for r in rows)
+    # the edges add up to the net dry-air import of the period table
+    total = {r["term"]: r for r in period_rows(ds, unit, kind="dry")}["Net dry-air import"]
+    if unit == "kg/s":
+        assert sum(r["mean_value"] for r in rows) == pytest.approx(total["mean_value"], rel=1e-9)
+    # and differ from the water-vapour edges (air, not moisture)
+    vapour = edge_rows(ds, "kg/s", kind="vapour")
+    assert rows[0]["mean_value"] != pytest.approx(vapour[0]["mean_value"], rel=1e-3)
+
+
+def test_dry_series_in_kg_per_s_is_the_mass_rate_over_the_region(profiled):
+    from app.figures import series_figure
+
+    ds = profiled
+    area = ds.attrs["region_area_m2"]
+    fig = series_figure(ds, "kg/s", kind="dry", name="Sample basin")
+    conv = next(t for t in fig.data if t.name == "Dry-air convergence")
+    np.testing.assert_allclose(conv.y, ds["dry_air_convergence"].values * area, rtol=1e-12)
+    assert "rates in kg/s" in fig.layout.title.text and fig.layout.yaxis2.title.text == "rate (kg/s)"
+    # mm/day left on the selector: dry air is shown in hPa/day, never as liquid water
+    fig = series_figure(ds, "mm/day", kind="dry", name="Sample basin")
+    conv = next(t for t in fig.data if t.name == "Dry-air convergence")
+    np.testing.assert_allclose(conv.y, ds["dry_air_convergence"].values * TO_HPA_DAY, rtol=1e-12)
+    assert "mm/day" not in fig.layout.title.text
+
+
+def test_dry_profile_and_curtain_show_dry_air(profiled):
+    from app.figures import curtain_figure, profile_figure
+
+    ds = profiled
+    prof = profile_figure(ds, 2, name="Sample basin", time_label="t", kind="dry")
+    line = next(t for t in prof.data if t.name == "import density")
+    np.testing.assert_allclose(line.y, ds["dry_air_import_density"].isel(time=2).values, rtol=1e-12)
+    assert "Dry air crossing the boundary" in prof.layout.title.text
+    curt = curtain_figure(ds, 2, name="Sample basin", time_label="t", kind="dry")
+    z = np.asarray(curt.data[0].z, float)
+    expected = ds["dry_air_normal_flux_density"].isel(time=2).transpose("level", "piece").values * 100
+    np.testing.assert_allclose(z, expected, rtol=1e-12, equal_nan=True)  # per Pa -> per hPa
+    assert "Inward dry air flux by height" in curt.layout.title.text

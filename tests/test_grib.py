@@ -341,3 +341,43 @@ def test_grib_levels_with_a_netcdf_of_surface_pressure(tmp_path, gfs_budget):
     ref = gfs_budget[1]
     np.testing.assert_allclose(ds["precipitable_water"].values, ref["precipitable_water"].values, rtol=1e-12)
     np.testing.assert_allclose(ds["vapour_import"].values, ref["vapour_import"].values, rtol=1e-12)
+
+
+def test_dashboard_data_folder_lists_grib_files_by_the_format_tables_endings(tmp_path):
+    """--data-dir finds GRIB files as the format table names them (budget/fields/opening.py)."""
+    import shutil
+
+    from app.server import resolve_sources
+    from budget.fields.opening import FIELD_SUFFIXES
+
+    assert {".grib2", ".grb", ".nc", ".zarr"} <= set(FIELD_SUFFIXES)
+    shutil.copy(NAM, tmp_path / "nam.grib2")
+    shutil.copy(GFS, tmp_path / "gfs.GRB2")
+    (tmp_path / "notes.txt").write_text("not fields")
+    labels = [s["label"] for s in resolve_sources(data_dir=tmp_path)]
+    assert labels == ["gfs.GRB2", "nam.grib2"]
+
+
+def test_command_line_rh_reference_mixed_is_used_and_stated(tmp_path):
+    """--rh-reference mixed on the GFS file (RH and T): the budget's provenance names the IFS
+    mixed phase, and W is below the over-water reading of the same RH (CHECKS.md: 12.03 mm),
+    since the mixed-phase saturation pressure is below water's under 0 degC (IFS Documentation
+    CY47R3 Part IV ch. 12; tests/test_humidity.py) while the warm low levels hold most vapour."""
+    import json
+    import subprocess
+    import sys
+
+    import xarray as xr
+
+    out = tmp_path / "box.nc"
+    r = subprocess.run(
+        [sys.executable, "-m", "app.cli", "run", str(GFS), "--bbox", "-101.25,28.75,-78.75,46.25",
+         "--rh-reference", "mixed", "--out", str(out), "--quiet"],
+        capture_output=True, text=True, timeout=600,
+    )
+    assert r.returncode == 0, r.stderr
+    with xr.open_dataset(out) as ds:
+        how = json.loads(ds.attrs["derived_roles"])["q"]
+        w = float(ds["precipitable_water"].values[0])
+    assert "IFS mixed phase" in how
+    assert 10.0 < w < 12.03

@@ -13,6 +13,8 @@ References
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -113,3 +115,58 @@ def test_ice_phase_below_freezing_only():
     assert es[1] == humidity.saturation_vapour_pressure_water(t[1])
     assert humidity.phase_of({"long_name": "relative humidity with respect to ice"}) == "ice"
     assert humidity.phase_of({"long_name": "relative humidity"}) == "water"
+
+
+# -- the IFS mixed phase ----------------------------------------------------------------------
+# IFS Documentation CY47R3, Part IV: Physical Processes (ECMWF 2021), chapter 12: saturation
+# over water and ice by Tetens forms a1 exp(a3 (T - T0) / (T - a4)), a1 = 611.21 Pa,
+# T0 = 273.16 K; water a3 = 17.502, a4 = 32.19 K; ice a3 = 22.587, a4 = -0.7 K; mixed phase
+# es = alpha esw + (1 - alpha) esi, alpha = ((T - Ti) / (T0 - Ti))^2, Ti = 250.16 K, alpha = 1 at
+# and above T0, 0 at and below Ti.  Written out here again, scalar by scalar, from the cited text.
+def ifs_mixed(t):
+    esw = 611.21 * math.exp(17.502 * (t - 273.16) / (t - 32.19))
+    esi = 611.21 * math.exp(22.587 * (t - 273.16) / (t + 0.7))
+    if t >= 273.16:
+        return esw
+    if t <= 250.16:
+        return esi
+    alpha = ((t - 250.16) / (273.16 - 250.16)) ** 2
+    return alpha * esw + (1.0 - alpha) * esi
+
+
+def test_mixed_phase_follows_the_ifs_formula():
+    t = np.arange(230.0, 300.01, 0.5)
+    got = humidity.saturation_vapour_pressure(t, "mixed")
+    np.testing.assert_allclose(got, [ifs_mixed(float(x)) for x in t], rtol=1e-12)
+    # the blend's own points: all ice at Ti, all water at T0, alpha = 1/4 halfway (quadratic)
+    half = 0.5 * (250.16 + 273.16)
+    esw = 611.21 * math.exp(17.502 * (half - 273.16) / (half - 32.19))
+    esi = 611.21 * math.exp(22.587 * (half - 273.16) / (half + 0.7))
+    assert humidity.saturation_vapour_pressure_mixed(np.array(half)) == pytest.approx(0.25 * esw + 0.75 * esi, rel=1e-12)
+    # at the triple point both Tetens forms give a1 exactly
+    assert humidity.saturation_vapour_pressure_mixed(np.array(273.16)) == pytest.approx(611.21, rel=1e-12)
+
+
+def test_mixed_phase_end_points_against_metpy_water_and_ice():
+    import metpy.calc as mpcalc
+    from metpy.units import units
+
+    warm = np.arange(273.5, 308.01, 2.5)  # all water: MetPy over liquid (Ambaum 2020)
+    cold = np.arange(233.15, 250.01, 2.5)  # all ice: MetPy over ice
+    mp_w = mpcalc.saturation_vapor_pressure(warm * units.kelvin, phase="liquid").to("Pa").magnitude
+    mp_i = mpcalc.saturation_vapor_pressure(cold * units.kelvin, phase="solid").to("Pa").magnitude
+    # Tetens forms against MetPy's exact-thermodynamics solution: within 0.5 % (IFS forms are
+    # fits of that accuracy over these ranges; common practice, no source for the bound)
+    np.testing.assert_allclose(humidity.saturation_vapour_pressure(warm, "mixed"), mp_w, rtol=5e-3)
+    np.testing.assert_allclose(humidity.saturation_vapour_pressure(cold, "mixed"), mp_i, rtol=5e-3)
+    # between, the blend lies between MetPy's ice and liquid values
+    mid = np.arange(251.0, 273.0, 1.0)
+    lo = mpcalc.saturation_vapor_pressure(mid * units.kelvin, phase="solid").to("Pa").magnitude
+    hi = mpcalc.saturation_vapor_pressure(mid * units.kelvin, phase="liquid").to("Pa").magnitude
+    got = humidity.saturation_vapour_pressure(mid, "mixed")
+    assert np.all(got > lo * (1 - 5e-3)) and np.all(got < hi * (1 + 5e-3))
+
+
+def test_unknown_reference_is_refused():
+    with pytest.raises(ValueError, match="water, ice, mixed"):
+        humidity.saturation_vapour_pressure(np.array(260.0), "liquid")

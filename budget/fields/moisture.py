@@ -30,6 +30,19 @@ def level_pressure(ds: xr.Dataset, vertical) -> xr.DataArray:
     raise ValueError("level inputs need a pressure or hybrid vertical coordinate")
 
 
+#: How each relative-humidity reference (budget.humidity.RH_REFERENCES) is stated in provenance.
+_REFERENCE_TEXT = {
+    "water": "with respect to water",
+    "ice": "with respect to ice below 0 degC",
+    "mixed": "with respect to the IFS mixed phase: water above 0 degC, ice below -23 degC, a quadratic blend between",
+}
+_SOURCE_TEXT = {
+    "water": "Bolton (1980)",
+    "ice": "Bolton (1980) and, over ice, Alduchov and Eskridge (1996)",
+    "mixed": "the IFS Tetens forms (IFS Documentation CY47R3, Part IV: Physical Processes, chapter 12)",
+}
+
+
 def derive_q(ds: xr.Dataset, forms: dict, vertical, phase: str = "water") -> tuple[xr.Dataset, str]:
     """(dataset with q instead of the form's variables, how q was obtained)."""
     if "mr" in forms:
@@ -39,11 +52,8 @@ def derive_q(ds: xr.Dataset, forms: dict, vertical, phase: str = "water") -> tup
         p = level_pressure(ds, vertical)
         if "rh" in forms:
             q = humidity.q_from_relative_humidity(ds["rh"], ds["t"], p, phase)
-            how = (f"from relative humidity '{forms['rh']}' (with respect to {phase}"
-                   f"{' below 0 degC' if phase == 'ice' else ''}) and air temperature "
-                   f"'{forms['t']}', saturation vapour pressure after "
-                   + ("Bolton (1980) and, over ice, Alduchov and Eskridge (1996)"
-                      if phase == "ice" else "Bolton (1980)"))
+            how = (f"from relative humidity '{forms['rh']}' ({_REFERENCE_TEXT[phase]}) and air "
+                   f"temperature '{forms['t']}', saturation vapour pressure after {_SOURCE_TEXT[phase]}")
         elif "td" in forms:
             q = humidity.q_from_dewpoint(ds["td"], p)
             how = (f"from the dew point '{forms['td']}', saturation vapour pressure over water "

@@ -23,7 +23,7 @@ from typing import Callable
 import xarray as xr
 
 from ..errors import FieldsError
-from ..grib import is_grib
+from ..grib import SUFFIXES as GRIB_SUFFIXES, is_grib
 from .grid import LAT_NAMES, LON_NAMES, guess_time_dim
 from . import joining
 from .hints import short, where as where_text
@@ -56,11 +56,13 @@ class Source:
 
 @dataclass(frozen=True)
 class Format:
-    """One row of the format table: a name, which paths it claims, and how to open them."""
+    """One row of the format table: a name, which paths it claims, how to open them, and the
+    file name endings by which a folder listing (the dashboard's --data-dir) finds them."""
 
     name: str
     claims: Callable[[list], bool]
     open: Callable[[list, object], Source]
+    suffixes: tuple = ()
 
 
 def is_zarr(path: str) -> bool:
@@ -201,12 +203,16 @@ def _open_netcdf_one(files: list, chunks) -> Source:
 
 #: The format table, tried in order; the first row that claims the paths opens them.
 #: (An xarray.Dataset given directly is handled before the table.)
+NETCDF_SUFFIXES = (".nc", ".nc4", ".netcdf")
 FORMATS: list[Format] = [
-    Format("grib", lambda files: any(is_grib(f) for f in files), lambda files, chunks: open_grib_files(files, chunks)),
-    Format("zarr", lambda files: len(files) == 1 and is_zarr(files[0]), _open_zarr),
-    Format("netcdf", lambda files: len(files) == 1, _open_netcdf_one),
-    Format("netcdf-many", lambda files: len(files) > 1, lambda files, chunks: open_many(files, chunks)),
+    Format("grib", lambda files: any(is_grib(f) for f in files), lambda files, chunks: open_grib_files(files, chunks),
+           GRIB_SUFFIXES),
+    Format("zarr", lambda files: len(files) == 1 and is_zarr(files[0]), _open_zarr, (".zarr",)),
+    Format("netcdf", lambda files: len(files) == 1, _open_netcdf_one, NETCDF_SUFFIXES),
+    Format("netcdf-many", lambda files: len(files) > 1, lambda files, chunks: open_many(files, chunks), NETCDF_SUFFIXES),
 ]
+#: Every file name ending a format of the table claims (lower case), in the table's order.
+FIELD_SUFFIXES: tuple = tuple(dict.fromkeys(s for fmt in FORMATS for s in fmt.suffixes))
 
 
 def open_source(paths, chunks=None) -> Source:

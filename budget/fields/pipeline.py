@@ -24,6 +24,7 @@ import xarray as xr
 
 from .. import humidity
 from ..catalogue import COLUMN_ROLES, LEVEL_ROLES
+from ..errors import RequestError
 from ..vertical import PressureLevels
 from . import checks, convert, gridwinds, moisture, opening, roles, times
 from .grid import Orientation, find_grid, indexer, orientation
@@ -40,10 +41,11 @@ class Request:
     start: object = None
     end: object = None
     chunks: object = None
+    rh_reference: str | None = None
 
 
 def open_fields(paths, var_map: dict | None = None, units: dict | None = None,
-                start=None, end=None, chunks=None) -> Fields:
+                start=None, end=None, chunks=None, rh_reference: str | None = None) -> Fields:
     """Open gridded input and return canonical `Fields` (lazy; only a small sample is read).
 
     paths:   a NetCDF file, a glob, a list of files, a Zarr store directory, or an open
@@ -55,8 +57,16 @@ def open_fields(paths, var_map: dict | None = None, units: dict | None = None,
              also "level" (pressure levels), "p0" and "ap" (hybrid coefficients).
     start, end: ISO 8601 times bounding the window (inclusive).
     chunks:  dask chunks passed to xarray; by default about 64 MiB per chunk, split in time.
+    rh_reference: what relative humidity is relative to when q is derived from it: "water",
+             "ice" (below 0 degC) or "mixed" (the ECMWF IFS blend, as ERA5's r is defined);
+             None reads the variable's attributes (ice when they say so, else water).
     """
-    req = Request(dict(var_map or {}), dict(units or {}), start, end, chunks)
+    if rh_reference is not None and rh_reference not in humidity.RH_REFERENCES:
+        raise RequestError(
+            f"The relative-humidity reference {rh_reference!r} is not known; choose one of "
+            f"{', '.join(humidity.RH_REFERENCES)} (--rh-reference)."
+        )
+    req = Request(dict(var_map or {}), dict(units or {}), start, end, chunks, rh_reference)
     src = opening.open_source(paths, req.chunks)                              # open
     raw, where, notes = src.ds, src.where, list(src.notes)
     g = find_grid(raw, where)                                                 # grid
@@ -79,8 +89,11 @@ def open_fields(paths, var_map: dict | None = None, units: dict | None = None,
     derived = {}
     if choice.humidity:                                                       # humidity
         checks.humidity_forms(ds, choice.humidity, where)
-        phase = humidity.phase_of(raw[choice.humidity["rh"]].attrs) if "rh" in choice.humidity else "water"
+        phase = _rh_phase(raw, choice.humidity, req.rh_reference)
         ds, derived["q"] = moisture.derive_q(ds, choice.humidity, lev.vertical, phase)
+    if req.rh_reference is not None and "rh" not in choice.humidity:
+        notes.append(f"The relative-humidity reference '{req.rh_reference}' has no effect: {where} "
+                     "gives humidity in another form than relative humidity.")
     found = dict(choice.found)
     if choice.humidity:
         found["q"] = "+".join(choice.humidity.values())
@@ -158,3 +171,11 @@ def _times(raw, g, ds, column_ds, src, canon, req: Request, where, notes):
         tchunks = {"time": int(n)} if n and "time" in pair[0].dims else {}
         pair = [convert.apply_deferred(d, tchunks, canon.deferred) for d in pair]
     return pair[0], pair[1], tvals
+
+
+def _rh_phase(raw, forms: dict, asked: str | None) -> str:
+    """The saturation reference of relative humidity: the caller's, else the variable's own
+    attributes (budget.humidity.phase_of), else water."""
+    if "rh" not in forms:
+        return "water"
+    return asked if asked is not None else humidity.phase_of(raw[forms["rh"]].attrs)

@@ -207,3 +207,48 @@ def test_the_budget_selector_shows_the_dry_air_mass_budget(app_page, sample):
     assert "kg/s" in table and "hPa/day" in table and "cm/s" in table
     assert "e+" not in table  # one number format: grouped digits, never an exponent
     assert "Sample basin" in page.inner_text("#budget-table caption")
+
+
+def test_dry_air_mode_switches_edges_profile_curtain_and_rate_units(app_page, sample):
+    import budget
+
+    page = app_page
+    ds = budget.compute(budget.open_fields(sample.levels), budget.load_region(path=sample.basin),
+                        profiles=True)
+    page.get_by_text("Dry-air mass", exact=True).click()
+    page.wait_for_function(
+        "document.querySelector('#series .js-plotly-plot').layout.title.text"
+        ".includes('Dry-air mass budget')", timeout=15_000)
+    # the rate units fit air: hPa/day or kg/s, never mm/day or m³/s of liquid water
+    page.wait_for_function(
+        "Array.from(document.querySelectorAll('#units input')).map(i => i.value).join() "
+        "== 'hPa/day,kg/s'", timeout=10_000)
+    assert page.is_checked("#units input[value='hPa/day']")
+    # the profile and the curtain show dry air, named with the region and the time
+    page.wait_for_function(
+        "document.querySelector('#profile .js-plotly-plot').layout.title.text"
+        ".includes('Dry air crossing the boundary')", timeout=10_000)
+    line = next(t for t in graph_traces(page, "profile") if t["name"] == "import density")
+    np.testing.assert_allclose(line["y"], ds["dry_air_import_density"].isel(time=0).values,
+                               rtol=1e-9)
+    curtain_title = page.evaluate(
+        "() => document.querySelector('#curtain .js-plotly-plot').layout.title.text")
+    assert "Inward dry air flux by height" in curtain_title and "Sample basin" in curtain_title
+    # the edge table lists the dry-air import of each edge in the chosen unit (kg/s here);
+    # the engine's per-edge means (budget.compute), shown with 4 significant digits
+    page.click("#units input[value='kg/s']")
+    page.wait_for_function(
+        "document.querySelector('#series .js-plotly-plot').layout.title.text"
+        ".includes('rates in kg/s')", timeout=10_000)
+    from app.figures import number
+
+    cells = page.locator("#budget-table .edge-scroll tbody tr td:nth-child(2)")
+    means = ds["dry_air_edge_import"].mean("time").values
+    assert [cells.nth(i).inner_text() for i in range(len(means))] == [
+        f"{number(m)} kg/s" for m in means]
+    # back to water vapour: the water units return, kg/s is kept
+    page.get_by_text("Water vapour", exact=True).click()
+    page.wait_for_function(
+        "Array.from(document.querySelectorAll('#units input')).map(i => i.value).join() "
+        "== 'mm/day,kg/s,m3/s'", timeout=10_000)
+    assert page.is_checked("#units input[value='kg/s']")

@@ -136,6 +136,10 @@ def test_typed_box_csv_download_matches_the_command_line(app_page, sample, tmp_p
     page.click("#box-add")
     wait_for_series(page, "Typed box 1")
     page.wait_for_selector("#budget-table table")
+    # the map outlines the new box, once the panels are drawn (the map is not redrawn when only
+    # the region message changes, so this is the first and only redraw for the box)
+    outline = [t for t in graph_traces(page, "map") if t["name"] == "region: Typed box 1"]
+    assert outline and min(outline[0]["x"]) == -4 and max(outline[0]["y"]) == 50
     got = open(_download(page, "dl-csv").path(), encoding="utf-8").read()
 
     out = tmp_path / "cli.csv"
