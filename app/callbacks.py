@@ -159,8 +159,9 @@ def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, 
 # ---------------------------------------------------------------------------------------------
 # the budget: request → job (server threads) → panels
 # ---------------------------------------------------------------------------------------------
-def _start(state, want: dict, key: str, again: bool = False):
-    """Start (or find) the job computing ``want``'s budget."""
+def start_budget(state, want: dict, key: str, again: bool = False):
+    """Start (or find) the job computing ``want``'s budget; public: the overlaid regions of
+    app/callbacks_records.py and the field sets of app/callbacks_datasets.py start theirs here."""
     from budget.ledger import compute
     from budget.region import region_from_geojson
 
@@ -185,9 +186,6 @@ def _start(state, want: dict, key: str, again: bool = False):
 
     return state.jobs.submit(key, name, work, lambda ds: state.results.put(key, ds),
                              lambda exc: problem(exc, "computing the budget"), again=again)
-
-
-start_budget = _start  # public: app/callbacks_records.py starts overlaid regions' budgets
 
 
 @callback(
@@ -216,7 +214,7 @@ def request_budget(selected, method, source_id, regions, correction, _again, att
         want["key"], want["problem"] = None, str(exc)
         return want
     if want["key"] not in state.results:
-        _start(state, want, want["key"], again=_trigger() == "budget-again")
+        start_budget(state, want, want["key"], again=_trigger() == "budget-again")
     return want
 
 
@@ -298,7 +296,7 @@ def show_budget(want, units, time_index, period, kind, _tick):
     polled = _trigger() == "budget-poll"
     ds = state.results.get(key)
     if ds is None:
-        job = state.jobs.get(key) or _start(state, want, key)
+        job = state.jobs.get(key) or start_budget(state, want, key)
         if job.pending and not polled:
             job.wait(WAIT_SECONDS)
         if job.status == DONE:

@@ -16,7 +16,7 @@ import threading
 from collections import OrderedDict
 
 import numpy as np
-from dash import Input, Output, State, callback, html, no_update
+from dash import Input, Output, State, callback, dcc, html, no_update
 from dash.exceptions import PreventUpdate
 
 from budget.attribution import AR_IVT_THRESHOLD, AttributionOptions
@@ -171,14 +171,18 @@ PANEL_OUT = {
     "ev_title": Output("insight-events-title", "children"),
     "ev_note": Output("insight-events-note", "children"),
     "events": Output("insight-events", "data"),
+    "ev_dl_off": Output("insight-dl-events", "disabled"),
+    "ev_dl_reason": Output("insight-dl-events-reason", "children"),
 }
 
 
-def _waiting(text: str, name: str | None = None) -> dict:
+def _waiting(text: str, name: str | None = None, reason: str | None = None) -> dict:
     who = f" — {name}" if name else ""
+    if reason is None:
+        reason = f"The catalogue waits for the budget of {name}." if name else "No region yet."
     return {"title": TITLE + who, "layers": empty_figure(text), "ar_title": f"Atmospheric-river share{who}",
             "ar": text, "rec_title": f"Recycling{who}", "rec": text, "ev_title": f"Events{who}",
-            "ev_note": text, "events": []}
+            "ev_note": text, "events": [], "ev_dl_off": True, "ev_dl_reason": reason}
 
 
 def _ar_block(summary):
@@ -209,17 +213,24 @@ def _layers_figure(ds, want, lo, hi, name):
     return empty_figure("Type layer bounds above to see the import by height and edge.")
 
 
-def _events(ds, percentile, name):
+def _catalogue(ds, percentile):
+    """The event catalogue (budget.events.find_events) for the percentile typed on the page."""
     from budget.events import EventRule, find_events
 
     try:
         rule = EventRule(percentile=float(percentile if percentile is not None else 95))
-        events = find_events(ds, rule)
-    except (FluxfenceError, TypeError, ValueError) as exc:
-        text = str(exc) if isinstance(exc, FluxfenceError) else "The event percentile must be a number; try 95."
-        return [], text
+    except (TypeError, ValueError):
+        raise RequestError("The event percentile must be a number; try 95.") from None
+    return find_events(ds, rule)
+
+
+def _events(ds, percentile, name):
+    try:
+        events = _catalogue(ds, percentile)
+    except FluxfenceError as exc:
+        return [], str(exc)
     note = (f"{len(events)} event(s) of {name}: P − E above {events.attrs['threshold_mm_day']:.2f} "
-            f"mm/day (the {rule.percentile:g}th percentile of its record).")
+            f"mm/day (the {events.attrs['percentile']:g}th percentile of its record).")
     return fa.event_table(ds, events), note
 
 
@@ -249,6 +260,9 @@ def show_insight(want, _shown, period, percentile):
             "ev_title": f"Events — {name}",
             "ev_note": note,
             "events": rows,
+            "ev_dl_off": not rows,
+            "ev_dl_reason": (f"The catalogue of {name}: {len(rows)} event(s)." if rows
+                             else f"No events of {name} to download ({note})"),
         }
     except Exception as exc:  # noqa: BLE001
         return _waiting(problem(exc, "drawing where the water comes from"), name)
@@ -294,3 +308,32 @@ def pick_event(cell, rows):
     if row is None:
         raise PreventUpdate
     return [int(row["first"]), int(row["last"])], int(row["first"])
+
+
+# ---------------------------------------------------------------------------------------------
+# the event catalogue as CSV: the columns of the command line's --events file
+# ---------------------------------------------------------------------------------------------
+@callback(
+    Output("insight-download-events", "data"),
+    Input("insight-dl-events", "n_clicks"),
+    State("want", "data"),
+    State("insight-percentile", "value"),
+    prevent_initial_call=True,
+)
+def download_events(_n, want, percentile):
+    """The finished budget's event catalogue, written as `fluxfence run --events` writes it
+    (budget.events.find_events, budget.export.frame_csv_text), named after the region."""
+    from budget.export import frame_csv_text
+
+    from .messages import slug
+
+    ds = _budget_of(want)
+    if ds is None:
+        raise PreventUpdate
+    try:
+        events = _catalogue(ds, percentile)
+    except FluxfenceError:
+        raise PreventUpdate from None
+    if events.empty:
+        raise PreventUpdate
+    return dcc.send_string(frame_csv_text(events), f"{slug(want.get('name'))}_events.csv")

@@ -116,10 +116,10 @@ def cmd_run(args) -> int:
     out = plan.file(args.out, "--out", SUFFIXES)
     nc = plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES) if args.netcdf else None
     tables = cli_records.targets(args, out) if cli_records.wanted(args) else {}
-    extra = cli_attribution.targets(args)
-    for path in [*tables.values(), *extra.values()]:
+    for path in tables.values():
         if path != out:
-            plan.file(path, "--out" if path in tables.values() else "--events")
+            plan.file(path, "--out")
+    extra = cli_attribution.targets(args, plan)
     partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
     files = ([] if "periods" in tables else [out]) + ([nc] if nc else [])  # --aggregate puts the period table in --out
     ds, fields, region = _compute_and_write(args, plan, partial, files, tables, extra)

@@ -48,9 +48,12 @@ def budget_options(args, closure):
 
 
 def refuse_with_many(args) -> None:
-    """Events and side-by-side datasets are per region: refuse them with many regions."""
-    if args.events:
-        raise RequestError("--events catalogues one region's events; pick one with --feature, or leave out --events.")
+    """Events of many regions go into one catalogue with a ``region`` column; one file per
+    region (--each-feature) has no such single table. Layers and the AR threshold reach
+    many-region runs through budget_options (budget.multi.compute_many)."""
+    if args.events and args.each_feature:
+        raise RequestError("--events writes one catalogue with a region column; leave out --each-feature, "
+                           "or pick one region with --feature.")
 
 
 def event_rule(args):
@@ -59,44 +62,30 @@ def event_rule(args):
     return EventRule(percentile=args.event_percentile, join_gap_hours=args.event_gap)
 
 
-def _planned(path: str, flag: str, args) -> Path:
-    """An output path checked before computing: a .csv, not an input, not existing without
-    --overwrite."""
-    p = Path(path)
-    if p.suffix.lower() != ".csv":
-        raise RequestError(f"{flag} writes a table; end its name in .csv, not {path!r}.")
-    inputs = [Path(f).resolve() for f in (args.fields or []) for f in (glob.glob(f) or [f])]
-    if p.resolve() in inputs:
-        raise RequestError(f"{flag} {path!r} is one of the input files; choose another name.")
-    if p.is_dir():
-        raise RequestError(f"{flag} {path!r} is a folder; give a file name ending in .csv.")
-    if p.exists() and not args.overwrite:
-        raise RequestError(f"{path!r} exists already; choose another {flag} or pass --overwrite.")
-    return p
-
-
-def targets(args) -> dict:
-    """The extra outputs, checked before computing."""
+def targets(args, plan) -> dict:
+    """The extra outputs, planned in the run's output transaction (budget.outputs.Outputs)
+    before anything is computed: a bad rule, an input, an existing file without --overwrite, a
+    folder or a name not ending in .csv are refused now."""
     paths = {}
     if args.events:
         event_rule(args)  # a bad rule is refused before computing
-        paths["events"] = _planned(args.events, "--events", args)
+        paths["events"] = plan.file(args.events, "--events", (".csv",))
     return paths
 
 
-def write_tables(args, ds, paths: dict, write=None) -> None:
-    """Write the extra tables of budget ``ds``; print a short note. ``write(df, path)``: the
-    command line's output transaction (budget.outputs) stages the table with the others."""
-    from budget.events import find_events
-    from budget.export import write_frame
+def write_tables(args, ds, paths: dict, write) -> None:
+    """Stage the extra tables of budget ``ds`` (one region, or a ``region`` dimension from
+    budget.multi) through ``write(df, path)``, the run's output transaction; print a short
+    note."""
+    from budget.events import find_events_by_region
 
-    write_frame = write or write_frame
     if "events" in paths:
-        ev = find_events(ds, event_rule(args))
-        write_frame(ev, paths["events"])
+        ev = find_events_by_region(ds, event_rule(args))
+        write(ev, paths["events"])
         if not args.quiet:
-            print(f"{len(ev)} events above the {args.event_percentile:g}th percentile of P - E "
-                  f"({ev.attrs['threshold_mm_day']:.3g} mm/day)")
+            level = ev.attrs["threshold_mm_day"]
+            level = f"{level:.3g} mm/day" if not isinstance(level, dict) else "each region's own"
+            print(f"{len(ev)} events above the {args.event_percentile:g}th percentile of P - E ({level})")
 
 
 def summary_lines(ds) -> list[str]:
@@ -164,11 +153,15 @@ def long_frame(stacked, budgets: dict):
 
 
 def run_datasets(args, open_fields, closure, progress, caution) -> int:
-    """`fluxfence run --dataset A=... --dataset B=... --region R --out long.csv`."""
+    """`fluxfence run --dataset A=... --dataset B=... --region R --out long.csv`.
+
+    The output goes through the run's transaction (budget.outputs.Outputs): planned and checked
+    before any field set is opened, staged when every budget is in, committed at the end."""
     from budget.compare import stack
-    from budget.export import write_frame
+    from budget.export import frame_csv_text
     from budget.ledger import compute
     from budget.options import RunOptions
+    from budget.outputs import Outputs
     from budget.region import load_region
 
     if args.fields:
@@ -176,17 +169,20 @@ def run_datasets(args, open_fields, closure, progress, caution) -> int:
     if args.each_feature or args.netcdf or args.events or getattr(args, "aggregate", None):
         raise RequestError("--dataset writes one long CSV for one region; leave out --each-feature, --netcdf, --events and --aggregate.")
     specs = dataset_specs(args.dataset)
-    out = _planned(args.out, "--out", argparse_like(args, [f for files in specs.values() for f in files]))
+    plan = Outputs(inputs=[f for files in specs.values() for f in files] + [args.region], overwrite=args.overwrite)
+    out = plan.file(args.out, "--out", (".csv",))
     region = load_region(path=args.region, bbox=args.bbox, feature=args.feature, great_circle=args.great_circle)
     options = budget_options(args, closure)
-    budgets = {}
-    for name, files in specs.items():
-        fields = open_fields(args, files)
-        if not args.quiet:
-            print(f"dataset {name}: {len(files)} file(s)", file=sys.stderr)
-        budgets[name] = compute(fields, region, options=options, run=RunOptions(progress=progress, scheduler=args.scheduler))
-    stacked = stack(budgets)
-    write_frame(long_frame(stacked, budgets), out)
+    with plan:  # the temporary is removed on any exit without a commit
+        budgets = {}
+        for name, files in specs.items():
+            fields = open_fields(args, files)
+            if not args.quiet:
+                print(f"dataset {name}: {len(files)} file(s)", file=sys.stderr)
+            budgets[name] = compute(fields, region, options=options, run=RunOptions(progress=progress, scheduler=args.scheduler))
+        stacked = stack(budgets)
+        plan.stage(out, frame_csv_text(long_frame(stacked, budgets)))
+        plan.commit()
     if not args.quiet:
         pme = stacked["p_minus_e"].mean("time") * 86400.0
         for name in stacked["dataset"].values:
@@ -196,10 +192,3 @@ def run_datasets(args, open_fields, closure, progress, caution) -> int:
         print(f"wrote {out}")
         print(caution)
     return 0
-
-
-def argparse_like(args, fields):
-    """``args`` with ``fields`` standing in for the positional files (for the input check)."""
-    import argparse
-
-    return argparse.Namespace(**{**vars(args), "fields": fields})

@@ -186,6 +186,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
         plan.file(f, "--out")
     if args.netcdf:
         plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES)
+    extra = cli_attribution.targets(args, plan)  # --events: one catalogue with a region column
     partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
     fields = open_fields()
     stencils = multi.compile_all(fields, regions, labels)  # every region checked before computing
@@ -202,7 +203,7 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
         summary = multi.summary_frame(ds)
         try:
             runfiles.hold("computed")
-            _stage_many(args, plan, ds, out, files, tables, summary)
+            _stage_many(args, plan, ds, out, files, tables, summary, extra)
             plan.commit()
         except KeyboardInterrupt:
             raise runfiles.WriteInterrupted(partial) from None
@@ -215,8 +216,9 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
     return 0
 
 
-def _stage_many(args, plan, ds, out: Path, files: list, tables: dict, summary) -> None:
+def _stage_many(args, plan, ds, out: Path, files: list, tables: dict, summary, extra: dict) -> None:
     """Stage every output of a many-region run in the transaction ``plan``."""
+    from app import cli_attribution
     from budget import multi
     from budget.export import encode, frame_csv_text
 
@@ -232,3 +234,5 @@ def _stage_many(args, plan, ds, out: Path, files: list, tables: dict, summary) -
         plan.stage(args.netcdf, encode(ds, args.netcdf))
     if tables:
         write_tables(args, ds, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
+    if extra:  # --events: one catalogue with a region column
+        cli_attribution.write_tables(args, ds, extra, write=lambda df, path: plan.stage(path, frame_csv_text(df)))

@@ -130,15 +130,19 @@ def figure_data(fields=None, region=None, budget=None, start=None, end=None, wit
     return data, fields
 
 
-def check_outputs(paths, inputs, overwrite: bool) -> None:
-    """Refuse, before any work, an output that exists (without --overwrite) or is an input, a
-    folder given as a file, a missing or read-only folder (budget.outputs)."""
+def plan_outputs(args, inputs):
+    """The command's output transaction (budget.outputs.Outputs), every output checked now,
+    before anything is computed: an input, an existing file without --overwrite, a folder given
+    as a file, a missing or read-only folder and a name without a known format are refused."""
+    from app import report
     from budget.outputs import Outputs
 
-    plan = Outputs(inputs=inputs, overwrite=overwrite)
-    for p in paths:
-        if p is not None:
-            plan.file(p, "--out")
+    plan = Outputs(inputs=inputs, overwrite=args.overwrite)
+    if args.out:
+        plan.file(args.out, "--out", tuple(report.FORMATS))
+    if args.animate:
+        plan.file(args.animate, "--animate", report.ANIMATION_FORMATS)
+    return plan
 
 
 def cmd_figure(args) -> int:
@@ -149,11 +153,9 @@ def cmd_figure(args) -> int:
     if not args.out and not args.animate:
         raise RequestError("Say where to write: --out FIGURE.png|pdf|svg and/or --animate EVENT.mp4|gif.")
     inputs = list(args.fields) + [p for p in (args.budget, args.region, args.discharge) if p]
-    check_outputs([args.out, args.animate], inputs, args.overwrite)
-    if args.out:
-        report.output_format(args.out)
-    if args.animate and Path(args.animate).suffix.lower() not in report.ANIMATION_FORMATS:
-        raise RequestError(f"Cannot tell the animation format of {args.animate!r}; end the name in .mp4 or .gif.")
+    plan = plan_outputs(args, inputs)
+    if args.animate and not args.fps > 0:
+        raise RequestError(f"--fps must be a positive number of frames per second, got {args.fps!r}.")
     style = report.get_style(args.style)
     if args.region and args.bbox:
         raise RequestError("Give either --region or --bbox, not both.")
@@ -173,18 +175,21 @@ def cmd_figure(args) -> int:
         if not args.region and not args.bbox:
             raise RequestError("Say which region: --region FILE (GeoJSON or shapefile) or --bbox W,S,E,N, or a saved --budget FILE.nc.")
         region = load_region(path=args.region, bbox=args.bbox, feature=args.feature)
-    data, fields = figure_data(fields, region, budget, args.start, args.end,
-                               with_map=args.layout in NEEDS_MAP, discharge=discharge)
-    written = []
-    if args.out:
-        fig = report.render(args.layout, data, style, page=args.page, convergence=args.convergence)
-        written.append(report.save(fig, args.out, dpi=args.dpi))
-    if args.animate:
-        if fields is None:
-            raise RequestError("An animation needs the field files as well as the budget.")
-        written.append(report.animate(data, snapshots(fields, data.budget["time"].values), args.animate, style, fps=args.fps))
-        if Path(args.animate).suffix.lower() == ".mp4":
-            print(f"encoded with {report.ffmpeg_program()[1]}", file=sys.stderr)
+    with plan:  # staged as each is drawn, committed together; temporaries removed on any exit
+        data, fields = figure_data(fields, region, budget, args.start, args.end,
+                                   with_map=args.layout in NEEDS_MAP, discharge=discharge)
+        stage = lambda path, write: plan.stage(path, write, keep_suffix=True)  # noqa: E731
+        if args.out:
+            fig = report.render(args.layout, data, style, page=args.page, convergence=args.convergence)
+            report.save(fig, args.out, dpi=args.dpi, stage=stage)
+        if args.animate:
+            if fields is None:
+                raise RequestError("An animation needs the field files as well as the budget.")
+            report.animate(data, snapshots(fields, data.budget["time"].values), args.animate, style,
+                           fps=args.fps, stage=stage)
+        written = plan.commit()
+    if args.animate and Path(args.animate).suffix.lower() == ".mp4":
+        print(f"encoded with {report.ffmpeg_program()[1]}", file=sys.stderr)
     for path in written:
         print(f"wrote {path}")
     return 0
@@ -216,5 +221,5 @@ def add_parser(sub) -> None:
     f.set_defaults(func=cmd_figure)
 
 
-__all__ = ["add_parser", "check_outputs", "cmd_figure", "figure_data", "mean_snapshot",
+__all__ = ["add_parser", "cmd_figure", "figure_data", "mean_snapshot",
            "read_budget", "read_discharge", "snapshots"]

@@ -101,21 +101,32 @@ EVENT_COLUMNS = [
 ]
 
 
-def datasets_figure(stacked, variable: str = "p_minus_e", scale: float = 86400.0, unit: str = "mm/day") -> go.Figure:
-    """One line per dataset on the common time axis, with the spread shaded."""
+def datasets_figure(stacked, variable: str = "p_minus_e", unit: str | None = None) -> go.Figure:
+    """One line per dataset on the common time axis (named by the dataset), with the spread
+    between them shaded; values in ``unit`` (default: the term's CSV unit) through the term
+    catalogue (budget.terms)."""
+    from budget import terms
+
     if variable not in stacked:
         return empty_figure(f"No {variable} in these budgets.")
     t = stacked["time"].values
-    v = stacked[variable] * scale
+    names = [str(d) for d in stacked["dataset"].values]
+    areas = (stacked["region_area_m2"].values if "region_area_m2" in stacked.coords
+             else np.full(len(names), float(stacked.attrs.get("region_area_m2", np.nan))))
+    unit = unit or terms.term(variable).columns[0].unit  # the CSV's display unit
+    v = np.array([terms.to_display(variable, stacked[variable].sel(dataset=d).values, unit, float(a))
+                  for d, a in zip(stacked["dataset"].values, areas)])
     fig = go.Figure()
-    lo, hi = v.min("dataset").values, v.max("dataset").values
+    lo, hi = np.nanmin(v, axis=0), np.nanmax(v, axis=0)
     fig.add_scatter(x=np.concatenate([t, t[::-1]]), y=np.concatenate([hi, lo[::-1]]), fill="toself",
-                    fillcolor="rgba(107,119,128,0.18)", line=dict(width=0), name="spread", hoverinfo="skip")
-    for i, d in enumerate(stacked["dataset"].values):
-        fig.add_scatter(x=t, y=v.sel(dataset=d).values, mode="lines", name=str(d),
+                    fillcolor="rgba(107,119,128,0.18)", line=dict(width=0), name="spread (range)",
+                    hoverinfo="skip")
+    for i, name in enumerate(names):
+        fig.add_scatter(x=t, y=v[i], mode="lines", name=name,
                         line=dict(color=DATASET_COLOURS[i % len(DATASET_COLOURS)], width=2))
-    label = stacked[variable].attrs.get("long_name", variable)
-    return _layout(fig, f"{label} by dataset", xaxis_title="time (UTC)", yaxis_title=f"{variable.replace('_', ' ')} ({unit})")
+    label = terms.term(variable).label
+    return _layout(fig, f"{label} by dataset", xaxis_title="time (UTC)",
+                   yaxis_title=terms.axis_title(variable, unit))
 
 
 # ---------------------------------------------------------------------------------------------

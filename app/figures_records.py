@@ -220,7 +220,8 @@ def climatology_figure(clim, term: str, name: str) -> go.Figure:
     mean = months[f"{term}_mean_mm_day"].to_numpy(float)
     std = months[f"{term}_std_mm_day"].to_numpy(float)
     years = months["years"].to_numpy(int)
-    labels = [MONTH_NAMES[int(m) - 1] for m in months["month"]]
+    # the years behind each bar under its month name (clear of the bars and error bars)
+    labels = [f"{MONTH_NAMES[int(m) - 1]}<br>{n} yr" for m, n in zip(months["month"], years)]
     note = climatology_note(clim, term)
     if not (years > 0).any():  # no complete month: the note alone, no empty axes
         return empty_figure(f"{_escape(name)}: {note}")
@@ -231,8 +232,6 @@ def climatology_figure(clim, term: str, name: str) -> go.Figure:
                        marker=dict(color=[ACCENT if v >= 0 else WARM for v in np.nan_to_num(mean)]),
                        error_y=dict(type="data", array=np.nan_to_num(std), visible=True,
                                     color=INK, thickness=1.2, width=4),
-                       text=[f"{n} yr" for n in years], textposition="outside",
-                       textfont=dict(size=10, color=MUTED), cliponaxis=False,
                        customdata=np.stack([np.nan_to_num(std), years], axis=-1),
                        hovertemplate=("%{x}: %{y:.4g} mm/day ± %{customdata[0]:.3g}"
                                       " (%{customdata[1]} years)<extra></extra>")))

@@ -248,7 +248,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
             html.Div(className="side", children=[regions_card, budget_card]),
             series_card,
             profile_card,
-            insight_card(),
+            insight_card(sources),
             records_card(upload_limit_mb),
         ]),
         footer,

@@ -27,6 +27,16 @@ AR_HELP = (
     "vertically integrated vapour transport (IVT) met the threshold, common choice "
     "250 kg m⁻¹ s⁻¹ (Rutz, Steenburgh and Ralph 2014)."
 )
+DATASETS_HELP = (
+    "Each field set is budgeted for this region on its own grid, levels and time steps (never "
+    "regridded); the series are compared on the time stamps they share, and the shaded band is "
+    "the range between them: how far the answer depends on the choice of dataset."
+)
+DATASET_VARIABLES = [
+    {"label": "P − E (mm/day)", "value": "p_minus_e"},
+    {"label": "Precipitable water (mm)", "value": "precipitable_water"},
+    {"label": "Net import (kg/s)", "value": "vapour_import"},
+]
 EVENT_HELP = (
     "Events: runs of time steps where the region's P − E exceeds the chosen percentile of its "
     "own record, joined across gaps shorter than a day. Click a row to set the period."
@@ -40,8 +50,29 @@ def _field(label, control, hint=None):
     ])
 
 
-def insight_card() -> html.Section:
-    """The card, placed by app/layout.py below the budget panels."""
+def _datasets_block(sources) -> html.Div:
+    """Choose several field sets of the server (app/server.py resolve_sources) and overlay the
+    region's series from each."""
+    return html.Div(className="insight-datasets", children=[
+        html.H3(id="insight-datasets-title", children="Datasets side by side"),
+        html.P(DATASETS_HELP, className="muted small"),
+        html.Div(className="insight-options", children=[
+            _field("Field sets", dcc.Dropdown(id="insight-datasets", options=list(sources), value=[],
+                                              multi=True, placeholder="choose two or more",
+                                              style={"minWidth": "360px"})),
+            _field("Series", dcc.RadioItems(id="insight-datasets-variable", options=DATASET_VARIABLES,
+                                            value="p_minus_e", inline=True, className="segmented")),
+        ]),
+        html.Div(id="insight-datasets-message", className="notice", role="alert",
+                 **{"aria-live": "polite"}),
+        dcc.Graph(id="insight-datasets-graph", config=PLOT_CONFIG, style={"height": "360px"}),
+        dcc.Interval(id="insight-datasets-poll", interval=500, disabled=True),
+    ])
+
+
+def insight_card(sources=()) -> html.Section:
+    """The card, placed by app/layout.py below the budget panels; ``sources`` are the field
+    sets the server may read ([{"value": id, "label": text}])."""
     options = html.Div(className="insight-options", children=[
         _field("Layer bounds (hPa)",
                dcc.Input(id="insight-layers", type="text", value="", debounce=True,
@@ -92,5 +123,11 @@ def insight_card() -> html.Section:
         html.P(EVENT_HELP, className="muted small"),
         html.Div(id="insight-events-note", className="muted small"),
         table,
+        html.Div(className="row downloads", children=[
+            html.Button("Event catalogue as CSV", id="insight-dl-events", className="btn", disabled=True),
+            html.Span(id="insight-dl-events-reason", className="muted small"),
+        ]),
+        dcc.Download(id="insight-download-events"),
+        _datasets_block(sources),
         dcc.Store(id="insight-options", data={"layers": "", "ar": AR_IVT_THRESHOLD}),
     ])

@@ -105,7 +105,7 @@ def create_app(paths=None, data_dir=None, cache_dir=None, job_threads: int = 2,
     records longer than ``long_steps`` time steps go to ``pool_workers`` persistent worker
     processes instead (app.pool).
     """
-    from . import callbacks, callbacks_attribution, callbacks_records, callbacks_report, regions  # noqa: F401 - registers the callbacks
+    from . import callbacks, callbacks_attribution, callbacks_datasets, callbacks_records, callbacks_report, regions  # noqa: F401 - registers the callbacks
     from .layout import build_layout
     from .state import Settings, Source, configure
 

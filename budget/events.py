@@ -155,3 +155,37 @@ def _row(ds, a, b, pme, dt, t_start, t_end) -> dict:
         "top_layer": _largest(ds["layer_import"], "layer", sl, dt) if "layer_import" in ds else None,
         "ar_share": share,
     }
+
+
+def _one_region(stacked: xr.Dataset, k: int) -> xr.Dataset:
+    """Region ``k`` of a many-region budget (budget.multi.stack) as a single-region budget: its
+    own edges by name (the NaN padding of regions with fewer edges left out)."""
+    ds = stacked.isel(region=k)
+    if "edge" in ds.dims and "edge_name" in ds.coords:
+        names = ds["edge_name"].values
+        real = np.array([isinstance(n, str) and n != "" for n in names], bool)
+        ds = ds.isel(edge=np.flatnonzero(real))
+        ds = ds.drop_vars("edge_name").assign_coords(edge=np.asarray(names[real], dtype=object))
+    return ds
+
+
+def find_events_by_region(stacked: xr.Dataset, rule: EventRule = EventRule()) -> pd.DataFrame:
+    """One catalogue for a budget with a ``region`` dimension (budget.multi.compute_many): each
+    region's events found in its own record (its own percentile), with a ``region`` column
+    first; columns otherwise as ``find_events``. A single-region budget is catalogued as is."""
+    if "region" not in stacked.dims:
+        return find_events(stacked, rule)
+    frames, thresholds = [], {}
+    for k, rid in enumerate(stacked["region"].values):
+        ds = _one_region(stacked, k)
+        try:
+            ev = find_events(ds, rule)
+        except RequestError as exc:
+            raise RequestError(f"Region {str(rid)!r}: {exc}") from None
+        thresholds[str(rid)] = ev.attrs["threshold_mm_day"]
+        ev.insert(0, "region", str(rid))
+        frames.append(ev)
+    out = pd.concat(frames, ignore_index=True)
+    out.attrs.update(threshold_mm_day=thresholds, percentile=rule.percentile, join_gap_hours=rule.join_gap_hours,
+                     rule="per region, from its own record: " + frames[0].attrs.get("rule", ""))
+    return out

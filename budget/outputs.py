@@ -337,14 +337,15 @@ class Outputs:
             self.created.extend(reversed(missing))
 
     # -- staging and commit ------------------------------------------------------------------
-    def stage(self, path, data) -> Path:
+    def stage(self, path, data, keep_suffix: bool = False) -> Path:
         """Write one planned output (bytes, text or a writer function) to its temporary now;
-        it lands at `commit`."""
+        it lands at `commit`. `keep_suffix`: see `_write_temp` (writers that read the format
+        from the name)."""
         target = Path(path)
         key = Path(os.path.abspath(target))
         if key not in self.planned:
             raise ValueError(f"{target} was not planned before computing")
-        self.staged.append((_write_temp(target, data, self.planned[key]), target))
+        self.staged.append((_write_temp(target, data, self.planned[key], keep_suffix), target))
         return target
 
     def commit(self) -> list[Path]:

@@ -82,3 +82,102 @@ def test_existing_events_file_is_kept(demo, tmp_path, capsys):
     code = main(["run", paths.levels, "--region", paths.basin, "--out", tmp_path / "y.csv", "--events", keep, "--quiet"])
     assert code != 0 and "exists" in capsys.readouterr().err
     assert keep.read_text() == "precious\n" and not (tmp_path / "y.csv").exists()
+
+
+# -- many regions: one catalogue with a region column --------------------------------------------
+def test_events_of_many_regions_match_single_runs(demo, tmp_path, capsys):
+    # Reference: the single-region path (--feature NAME --events), one run per region; the
+    # many-region run reads the fields once and must give each region the same catalogue.
+    import json
+
+    from tests.test_multi import BASINS, collection
+
+    d, paths = demo
+    regions = tmp_path / "three.geojson"
+    regions.write_text(json.dumps(collection()))
+    many = tmp_path / "many_events.csv"
+    code = main(["run", paths.levels, "--region", regions, "--out", tmp_path / "long.csv", "--events", many,
+                 "--event-percentile", "80", "--quiet"])
+    assert code == 0, capsys.readouterr().err
+    ev = pd.read_csv(many)
+    assert list(ev.columns[:2]) == ["region", "start"]
+    assert set(ev["region"]) <= set(BASINS) and len(ev) >= 1
+    for name in BASINS:
+        one = tmp_path / f"{name}.csv"
+        assert main(["run", paths.levels, "--region", regions, "--feature", name, "--out", tmp_path / f"{name}_b.csv",
+                     "--events", one, "--event-percentile", "80", "--quiet"]) == 0
+        single = pd.read_csv(one)
+        mine = ev[ev["region"] == name].drop(columns="region").reset_index(drop=True)
+        cols = ["start", "end", "steps", "total_p_minus_e_mm", "top_edge", "ar_share"]
+        pd.testing.assert_frame_equal(mine[cols], single[cols], check_dtype=False, rtol=1e-5)
+
+
+def test_events_with_each_feature_is_refused(demo, tmp_path, capsys):
+    import json
+
+    from tests.test_multi import collection
+
+    d, paths = demo
+    regions = tmp_path / "three.geojson"
+    regions.write_text(json.dumps(collection()))
+    code = main(["run", paths.levels, "--region", regions, "--each-feature", "--out", tmp_path / "each",
+                 "--events", tmp_path / "ev.csv", "--quiet"])
+    err = capsys.readouterr().err
+    assert code != 0 and "--each-feature" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "each").exists() and not (tmp_path / "ev.csv").exists()
+
+
+# -- datasets side by side: one output transaction (budget.outputs) -------------------------------
+def _no_compute(monkeypatch):
+    """Make any budget computation fail loudly, so a refusal is shown to come before it."""
+    import budget.ledger
+
+    def refuse(*a, **k):
+        raise AssertionError("computed before the outputs were checked")
+
+    monkeypatch.setattr(budget.ledger, "compute", refuse)
+
+
+def test_datasets_existing_output_refused_before_computing(demo, tmp_path, capsys, monkeypatch):
+    d, paths = demo
+    keep = tmp_path / "cmp.csv"
+    keep.write_text("precious\n")
+    _no_compute(monkeypatch)
+    code = main(["run", "--dataset", f"base={paths.levels}", "--dataset", f"moist={d / 'moist.nc'}",
+                 "--region", paths.basin, "--out", keep, "--quiet"])
+    err = capsys.readouterr().err
+    assert code != 0 and code != 70 and "exists already" in err and "Traceback" not in err
+    assert keep.read_text() == "precious\n"
+    assert [p.name for p in tmp_path.iterdir()] == ["cmp.csv"]  # no temporary left
+
+
+def test_datasets_input_as_output_refused(demo, tmp_path, capsys, monkeypatch):
+    d, paths = demo
+    before = (d / "moist.nc").read_bytes()
+    _no_compute(monkeypatch)
+    code = main(["run", "--dataset", f"base={paths.levels}", "--dataset", f"moist={d / 'moist.nc'}",
+                 "--region", paths.basin, "--out", d / "moist.nc", "--overwrite", "--quiet"])
+    err = capsys.readouterr().err
+    assert code != 0 and "one of the inputs" in err and len(err.strip().splitlines()) == 1
+    assert (d / "moist.nc").read_bytes() == before
+
+
+@pytest.mark.parametrize("extra, column", [(["--layers", "1000,850,700"], "layer_1000_850hPa_import_kg_s"),
+                                           (["--ar-threshold", "300"], "ar_inflow_kg_s")])
+def test_many_regions_carry_layers_and_the_ar_threshold(demo, tmp_path, capsys, extra, column):
+    # many-region runs (budget.multi.compute_many) carry the attribution options; reference:
+    # each region's single run with the same option (--feature), whose CSV keeps 6 digits
+    import json
+
+    from tests.test_multi import collection
+
+    d, paths = demo
+    regions = tmp_path / "three.geojson"
+    regions.write_text(json.dumps(collection()))
+    assert main(["run", paths.levels, "--region", regions, "--out", tmp_path / "long.csv", "--quiet", *extra]) == 0
+    long = pd.read_csv(tmp_path / "long.csv")
+    assert main(["run", paths.levels, "--region", regions, "--feature", "East Ridge", "--out", tmp_path / "one.csv",
+                 "--quiet", *extra]) == 0
+    one = pd.read_csv(tmp_path / "one.csv")
+    got = long.loc[long["region"] == "East Ridge", column].to_numpy()
+    np.testing.assert_allclose(got, one[column].to_numpy(), rtol=1e-5, atol=1e-5 * float(np.abs(one[column]).max()))

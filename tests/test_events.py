@@ -105,3 +105,39 @@ def test_bad_rules_and_empty_records_say_so():
     ds = _budget([np.nan, np.nan])
     with pytest.raises(RequestError, match="two time steps"):
         find_events(ds)
+
+
+def test_many_regions_one_catalogue_each_from_its_own_record():
+    # Two regions stacked as budget.multi.stack does (a region dimension, edges padded with NaN
+    # for the region with fewer edges). Planted by construction: region "wet" has one burst of
+    # 4 steps at 40 mm/day on a 2 mm/day record; region "dry" one of 2 steps at 5 mm/day on a
+    # 0.1 mm/day record — below wet's threshold, so only its own percentile finds it. Dry's
+    # three edges all export except the second during its burst; the padded fourth edge (NaN)
+    # must not win with a sum of 0.
+    from budget.events import find_events_by_region
+
+    n = 120
+    wet, dry = np.full(n, 2.0), np.full(n, 0.1)
+    wet[30:34] = 40.0
+    dry[80:82] = 5.0
+    edges_wet = np.zeros((n, 4))
+    edges_wet[30:34, 3] = 1e7
+    edges_dry = np.full((n, 4), np.nan)
+    edges_dry[:, :3] = -1e6
+    edges_dry[80:82, 1] = -1e5
+    a = _budget(wet, edges=edges_wet).assign_coords(edge=np.arange(4))
+    b = _budget(dry, edges=edges_dry).assign_coords(edge=np.arange(4))
+    names = [["N", "E", "S", "W"], ["e0", "e1", "e2", None]]
+    stacked = xr.concat([x.expand_dims(region=[r]) for x, r in zip((a, b), ("wet", "dry"))], dim="region")
+    stacked = stacked.assign_coords(edge_name=(("region", "edge"), np.array(names, dtype=object)))
+    ev = find_events_by_region(stacked)
+    assert list(ev.columns[:3]) == ["region", "start", "end"]
+    assert ev["region"].tolist() == ["wet", "dry"]
+    w, d = ev.iloc[0], ev.iloc[1]
+    assert w["steps"] == 4 and w["total_p_minus_e_mm"] == pytest.approx(4 * 40 * 0.25) and w["top_edge"] == "W"
+    assert d["steps"] == 2 and d["total_p_minus_e_mm"] == pytest.approx(2 * 5 * 0.25) and d["top_edge"] == "e1"
+    assert d["start"] == "2030-01-21T00:00:00Z"  # step 80 x 6 h = 20 days
+    # each region's threshold is the 95th percentile of its own record (numpy, type 7)
+    assert ev.attrs["threshold_mm_day"]["dry"] == pytest.approx(np.percentile(dry, 95))
+    # a budget without a region dimension is catalogued as find_events does
+    pd.testing.assert_frame_equal(find_events_by_region(_budget(wet)), find_events(_budget(wet)))

@@ -129,8 +129,8 @@ def test_climatology_bars_are_pandas_monthly_means_with_the_interannual_spread()
     np.testing.assert_allclose(bars.error_y.array, by_month.std().values, rtol=1e-9)
     # built in: each year sits 0.4 mm/day above the last, so the spread is 0.4 mm/day
     np.testing.assert_allclose(by_month.std().values, 0.4, rtol=1e-9)
-    assert list(bars.text) == ["3 yr"] * 12
-    assert list(bars.x)[0] == "Jan" and fig.layout.yaxis.title.text == "P − E (mm/day)"
+    assert list(bars.x) == [f"{m}<br>3 yr" for m in fr.MONTH_NAMES]  # years per bar
+    assert fig.layout.yaxis.title.text == "P − E (mm/day)"
     # the note lives in the title block, in the top margin above the plot area (container
     # coordinates), never as an annotation over the bars
     assert "3 years" in fig.layout.title.text and fig.layout.title.yref == "container"

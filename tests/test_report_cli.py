@@ -158,3 +158,47 @@ def test_mp4_without_a_system_ffmpeg_uses_the_wheel(sample, tmp_path, capsys, mo
                  "--end", "2025-01-15T06:00", "--fps", "2"]) == 0, capsys.readouterr().err
     assert "encoded with imageio-ffmpeg wheel" in capsys.readouterr().err
     assert _frames_and_seconds(out)[0] == 2
+
+
+# -- one output transaction (budget.outputs): refusals come before any computing -------------------
+def _no_figure_data(monkeypatch):
+    import app.figure_cmd
+
+    def refuse(*a, **k):
+        raise AssertionError("computed before the outputs were checked")
+
+    monkeypatch.setattr(app.figure_cmd, "figure_data", refuse)
+
+
+def test_existing_figure_refused_before_computing(sample, tmp_path, capsys, monkeypatch):
+    keep = tmp_path / "old.gif"
+    keep.write_bytes(b"keep me")
+    _no_figure_data(monkeypatch)
+    code = main(["figure", str(sample.levels), "--region", str(sample.basin), "--out", str(tmp_path / "new.png"),
+                 "--animate", str(keep)])
+    err = capsys.readouterr().err
+    assert code != 0 and "exists already" in err and "--animate" in err and "Traceback" not in err
+    assert keep.read_bytes() == b"keep me" and sorted(p.name for p in tmp_path.iterdir()) == ["old.gif"]
+
+
+def test_figure_input_as_output_refused_even_with_overwrite(sample, tmp_path, capsys, monkeypatch):
+    import shutil as sh
+
+    region = tmp_path / "basin.svg"  # an input whose name a figure could take
+    sh.copy(sample.basin, region)
+    before = region.read_bytes()
+    _no_figure_data(monkeypatch)
+    code = main(["figure", str(sample.levels), "--region", str(region), "--out", str(region), "--overwrite"])
+    err = capsys.readouterr().err
+    assert code != 0 and "one of the inputs" in err and len(err.strip().splitlines()) == 1
+    assert region.read_bytes() == before
+
+
+def test_figure_and_animation_land_together(sample, tmp_path, capsys):
+    # both outputs of one command are committed together: a PNG (by its signature, PNG spec
+    # section 5.2) and a GIF (by its header, GIF89a spec), nothing else left in the folder
+    png, gif = tmp_path / "s.png", tmp_path / "e.gif"
+    assert main(["figure", str(sample.levels), "--region", str(sample.basin), "--layout", "series", "--out", str(png),
+                 "--animate", str(gif), "--end", "2025-01-15T06:00", "--dpi", "50"]) == 0, capsys.readouterr().err
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and gif.read_bytes()[:6] == b"GIF89a"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["e.gif", "s.png"]

@@ -169,7 +169,10 @@ def test_memory_stays_flat_when_the_record_grows_tenfold(tmp_path, monkeypatch):
     # blocks of 10 steps of a 0.25° regional grid: each block holds ~0.5 MB of cells
     monkeypatch.setattr(block_reader, "MAX_BLOCK_STEPS", 10)
     path = write_column_file(tmp_path / "long.nc", 200, res=0.25, time_chunk=10)
-    short, long = _peak_bytes(path, 20), _peak_bytes(path, 200)
+    # the smaller of two runs each: a first run may also fill one-off caches (imports, time
+    # axes, earlier tests' state), which are not the computation's working memory
+    short = min(_peak_bytes(path, 20) for _ in range(2))
+    long = min(_peak_bytes(path, 200) for _ in range(2))
     # issue 5: a 10x longer record must not need more than ~1.2x the peak memory
     assert long <= 1.2 * short, (short, long)
 

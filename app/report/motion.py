@@ -13,7 +13,6 @@ from matplotlib.figure import Figure
 from . import style as st
 from .data import series_label
 from .mapview import base_axes, draw_region, frame_for, ivt_layer, ivt_limit, nice_reference
-from .page import atomic_file
 
 FRAME_SIZE = (12.8, 7.2)  # inches at 100 dpi: 1280 x 720 pixels, even sides for H.264
 FRAME_DPI = 100
@@ -38,8 +37,12 @@ def ffmpeg_program() -> tuple[str, str]:
     return imageio_ffmpeg.get_ffmpeg_exe(), "imageio-ffmpeg wheel"
 
 
-def animate(data, snapshots, path, style, fps: float = 4.0) -> Path:
-    """Write one frame per snapshot (budget.maps.column_snapshot, one per budget time step)."""
+def animate(data, snapshots, path, style, fps: float = 4.0, stage=None) -> Path:
+    """Write one frame per snapshot (budget.maps.column_snapshot, one per budget time step),
+    atomically (budget.outputs.atomic_write), or through ``stage(path, write)``: a run's output
+    transaction (budget.outputs.Outputs.stage)."""
+    from budget.outputs import atomic_write
+
     from budget.errors import RequestError
 
     path = Path(path)
@@ -52,7 +55,10 @@ def animate(data, snapshots, path, style, fps: float = 4.0) -> Path:
     with style.context():
         fig, update = _frame_figure(data, snapshots, style)
         writer = _writer(path, fps)
-        return atomic_file(path, lambda tmp: _write_frames(fig, update, len(snapshots), writer, tmp))
+        write = lambda tmp: _write_frames(fig, update, len(snapshots), writer, str(tmp))  # noqa: E731
+        if stage is not None:
+            return stage(path, write)
+        return atomic_write(path, write, keep_suffix=True)
 
 
 def _writer(path: Path, fps: float):

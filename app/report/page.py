@@ -65,19 +65,17 @@ def output_format(path) -> str:
     return FORMATS[suffix]
 
 
-def save(fig: Figure, path, dpi: int = 150) -> Path:
-    """Write the figure by extension, atomically (temporary file beside it, then rename)."""
-    fmt = output_format(path)
-    return atomic_file(path, lambda tmp: fig.savefig(tmp, format=fmt, dpi=dpi, metadata=_metadata(fmt)))
-
-
-def atomic_file(path, write) -> Path:
-    """Call write(temporary path) beside ``path``, then rename it into place (budget.outputs:
-    fsync, 0644 under umask 022); the temporary keeps the extension so writers can tell the
-    format."""
+def save(fig: Figure, path, dpi: int = 150, stage=None) -> Path:
+    """Write the figure by extension, atomically (budget.outputs.atomic_write: temporary file
+    beside it, fsync, rename, 0644 under umask 022).  ``stage(path, write)``: a run's output
+    transaction (budget.outputs.Outputs.stage) instead, so the file lands with the others."""
     from budget.outputs import atomic_write
 
-    return atomic_write(path, lambda tmp: write(str(tmp)), keep_suffix=True)
+    fmt = output_format(path)
+    write = lambda tmp: fig.savefig(str(tmp), format=fmt, dpi=dpi, metadata=_metadata(fmt))  # noqa: E731
+    if stage is not None:
+        return stage(Path(path), write)
+    return atomic_write(path, write, keep_suffix=True)
 
 
 def to_bytes(fig: Figure, fmt: str = "png", dpi: int = 150) -> bytes:

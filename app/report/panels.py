@@ -196,11 +196,16 @@ def draw_climatology(fig, data, style, rect=(0.0, 0.0, 1.0, 1.0), compact: bool 
     right = ax.secondary_yaxis("right", functions=(data.to_m3_s, data.from_m3_s))
     right.set_ylabel("P − E over the region, m³/s")
     years = int(cyc["years"].max()) if len(cyc) else 0
-    ax.set_title(_title(data, "mean annual cycle of P − E", compact))
-    ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16) if compact else None)
+    short = None
     if "daily" in spread or years < 10:
         short = ("short record: the months present, no complete month in two years" if "daily" in spread
                  else f"{years} years of complete months: a short climatology")
-        ax.text(0.99, 0.97, short,
-                transform=ax.transAxes, ha="right", va="top", fontsize=style.caption_size, color=st.MUTED)
+    # the note sits in a band between the plot and its title (the title is raised to make room),
+    # so it never covers a bar, the band or the legend
+    pad = 6.0 + (1.6 * style.caption_size if short else 0.0)
+    ax.set_title(_title(data, "mean annual cycle of P − E", compact), pad=pad)
+    ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16) if compact else None)
+    if short:
+        ax.annotate(short, xy=(0.0, 1.0), xycoords="axes fraction", xytext=(0, 3), textcoords="offset points",
+                    ha="left", va="bottom", fontsize=style.caption_size, color=st.MUTED)
     return [ax]

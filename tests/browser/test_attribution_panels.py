@@ -120,3 +120,60 @@ def test_eddy_panel_with_its_sampling_note(app_page, basin_budget):
     assert "sampling interval" in note and "Seager and Henderson 2013" in note
     title = page.evaluate("document.querySelector('#insight-eddy-graph .js-plotly-plot').layout.title.text")
     assert "Sample basin" in title
+
+
+def test_event_catalogue_download_matches_the_table(app_page, basin_budget):
+    import pandas as pd
+
+    from budget.events import find_events
+
+    page = app_page
+    page.wait_for_selector("#insight-events td[data-dash-column='start']", timeout=90_000)
+    page.wait_for_function("!document.querySelector('#insight-dl-events').disabled", timeout=30_000)
+    assert "Sample basin" in page.inner_text("#insight-dl-events-reason")
+    with page.expect_download() as info:
+        page.click("#insight-dl-events")
+    download = info.value
+    assert download.suggested_filename == "sample_basin_invented_events.csv"  # the region's name
+    df = pd.read_csv(download.path())
+    # the columns of the command line's --events file (budget.events.find_events)
+    assert list(df.columns) == list(find_events(basin_budget["ds"]).columns)
+    # one row per table row, the same events in the same order
+    starts = page.locator("#insight-events td[data-dash-column='start']").all_inner_texts()
+    totals = page.locator("#insight-events td[data-dash-column='total_p_minus_e_mm']").all_inner_texts()
+    assert list(df["start"]) == starts
+    np.testing.assert_allclose(df["total_p_minus_e_mm"].round(2), [float(x) for x in totals], atol=1e-9)
+
+
+def test_datasets_overlay_one_trace_per_field_set(app_page):
+    # Reference: the engine's budget of the basin on each field set, computed outside the page
+    # (budget.ledger.compute on each file, on the time stamps both share).
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import load_region
+    from sample_fields import ensure_sample
+
+    page = app_page
+    sample = ensure_sample()
+    labels = {"Invented demo event — on pressure levels": sample.levels,
+              "Invented demo event — column totals": sample.column}
+    page.locator("#insight-datasets").scroll_into_view_if_needed()
+    for label in labels:
+        page.click("#insight-datasets")
+        page.get_by_role("option", name=label).click()
+        page.keyboard.press("Escape")
+    _wait_traces(page, "insight-datasets-graph", list(labels))
+    traces = {t["name"]: t for t in graph_traces(page, "insight-datasets-graph")}
+    assert set(traces) == {"spread (range)", *labels}  # the legend names each dataset
+    region = load_region(path=sample.basin)
+    for label, path in labels.items():
+        ds = compute(open_fields([str(path)]), region)
+        np.testing.assert_allclose(traces[label]["y"], ds["p_minus_e"].values * 86400.0, rtol=1e-6)
+    band = np.asarray(traces["spread (range)"]["y"], float)
+    ys = np.array([traces[label]["y"] for label in labels], float)
+    n = ys.shape[1]
+    np.testing.assert_allclose(band[:n], ys.max(axis=0))
+    np.testing.assert_allclose(band[n:][::-1], ys.min(axis=0))
+    assert "Sample basin" in page.inner_text("#insight-datasets-title")
+    assert "mm/day" in page.evaluate(
+        "document.querySelector('#insight-datasets-graph .js-plotly-plot').layout.yaxis.title.text")

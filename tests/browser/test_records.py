@@ -91,7 +91,7 @@ def test_period_selector_switches_series_and_table(app_page, basin_budget):
 
     _choose_period(page, "month")
     page.wait_for_function(
-        "document.querySelector('#records-table tbody tr td').textContent === '2025-01'")
+        "(document.querySelector('#records-table tbody tr td') || {}).textContent === '2025-01'")
     month = _rows(page, "#records-table")
     assert len(month) == 1 and "low coverage" in month[0][4]  # 5¼ days of January
 
@@ -204,3 +204,165 @@ def test_ticked_regions_overlay_each_under_its_own_name(app_page, basin_budget):
     legend = page.evaluate("""() => Array.from(document.querySelectorAll(
                               '#overlay-graph .legendtext')).map(t => t.textContent)""")
     assert sorted(legend) == sorted(traces)
+
+
+# ---------------------------------------------------------------------------------------------
+# a three-year invented record, served by a dashboard in its own process (Dash's callbacks
+# and the server's state are per process, so the sample dashboard above is left alone)
+# ---------------------------------------------------------------------------------------------
+SERVE = """
+import sys
+from werkzeug.serving import make_server
+from app.server import create_app
+app = create_app(paths=[sys.argv[1]], cache_dir=sys.argv[2])
+server = make_server("127.0.0.1", 0, app.server, threaded=True)
+print(server.server_port, flush=True)
+server.serve_forever()
+"""
+
+LONG_BOX = (5, 35, 15, 45)  # W, S, E, N inside the invented grid
+
+
+def three_year_fields(path):
+    """Invented column fields (not weather): the analytic flux of budget.testing on a 1° grid,
+    its divergent part scaled daily by an annual cycle whose level rises each water year, so
+    the box's P − E has a known annual cycle; W is constant, so dW/dt is zero."""
+    import xarray as xr
+
+    from budget import testing
+
+    times = pd.date_range("2021-10-01", "2024-09-30", freq="D")
+    lon, lat = np.arange(0.0, 20.5, 1.0), np.arange(30.0, 50.5, 1.0)
+    qu_d, qv_d, qu_r, qv_r = testing.flux_parts(*np.meshgrid(lon, lat))
+    wy = times.year + (times.month >= 10) - 2022  # 0, 1, 2 for the three water years
+    g = 1.0 + 0.5 * np.sin(2 * np.pi * times.day_of_year.to_numpy() / 365.0) + 0.2 * wy
+    g = g.to_numpy()[:, None, None]
+    std = "atmosphere_water_vapor_transport_across_unit_distance"
+    ds = xr.Dataset(
+        {"qu": (("time", "lat", "lon"), g * qu_d + qu_r, {"units": "kg m-1 s-1",
+                                                          "standard_name": "eastward_" + std}),
+         "qv": (("time", "lat", "lon"), g * qv_d + qv_r, {"units": "kg m-1 s-1",
+                                                          "standard_name": "northward_" + std}),
+         "w": (("time", "lat", "lon"), np.full((times.size, lat.size, lon.size), 20.0),
+               {"units": "kg m-2", "standard_name": "atmosphere_mass_content_of_water_vapor"})},
+        coords={"time": times.values,
+                "lat": ("lat", lat, {"units": "degrees_north", "standard_name": "latitude"}),
+                "lon": ("lon", lon, {"units": "degrees_east", "standard_name": "longitude"})},
+        attrs={"title": "Invented three-year column fields for Fluxfence tests (not weather)"},
+    )
+    ds.to_netcdf(path)
+    return path
+
+
+@pytest.fixture(scope="module")
+def long_record(tmp_path_factory):
+    import os
+    import subprocess
+    import sys
+
+    folder = tmp_path_factory.mktemp("long-record")
+    fields = three_year_fields(folder / "invented_three_years.nc")
+    proc = subprocess.Popen([sys.executable, "-c", SERVE, str(fields), str(folder / "cache")],
+                            stdout=subprocess.PIPE, text=True, env=dict(os.environ))
+    try:
+        port = int(proc.stdout.readline())
+        yield {"url": f"http://127.0.0.1:{port}", "fields": fields}
+    finally:
+        proc.terminate()
+        proc.wait(timeout=30)
+
+
+@pytest.fixture(scope="module")
+def long_budget(long_record):
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_bbox
+
+    return compute(open_fields([str(long_record["fields"])]), region_from_bbox(*LONG_BOX))
+
+
+@pytest.fixture
+def long_page(page, long_record, shots_dir, request):
+    from tests.browser.conftest import Watch
+
+    watch = Watch(page, long_record["url"])
+    page.goto(long_record["url"] + "/")
+    page.wait_for_selector("#map .heatmaplayer image, #map .hm image", timeout=90_000)
+    page.click("#adder-box summary")
+    west, south, east, north = LONG_BOX
+    for field, value in (("west", west), ("south", south), ("east", east), ("north", north)):
+        page.fill(f"#box-{field}", str(value))
+    page.click("#box-add")
+    wait_for_series(page, "Typed box", timeout=120_000)
+    yield page
+    page.screenshot(path=str(shots_dir / f"{request.node.name}.png"), full_page=True)
+    assert not watch.errors, f"console errors: {watch.errors}"
+    assert not watch.outside(), f"requests left 127.0.0.1: {watch.outside()}"
+
+
+def test_climatology_of_three_years_matches_pandas_and_its_note_stays_clear(long_page,
+                                                                           long_budget):
+    page = long_page
+    page.locator("#records-climatology").scroll_into_view_if_needed()
+    page.wait_for_function(
+        """() => { const gd = document.querySelector('#records-climatology .js-plotly-plot');
+                   return gd && gd.data && gd.data.some(t => t.type === 'bar'); }""",
+        timeout=60_000)
+    bars = graph_traces(page, "records-climatology")[0]
+    # reference: pandas — monthly means of the engine's daily P − E (daily steps each hold for
+    # a day), then mean and standard deviation (ddof=1) over the years of each calendar month
+    pme = pd.Series(long_budget["p_minus_e"].values * 86400.0,
+                    index=pd.DatetimeIndex(long_budget["time"].values))
+    monthly = pme.resample("MS").mean()
+    by_month = monthly.groupby(monthly.index.month)
+    np.testing.assert_allclose(bars["y"], by_month.mean().values, rtol=1e-9)
+    err = page.evaluate("""() => Array.from(document.querySelector(
+        '#records-climatology .js-plotly-plot')._fullData[0].error_y.array)""")
+    np.testing.assert_allclose(err, by_month.std().values, rtol=1e-9)
+    note = page.locator("#records-climatology-note").inner_text()
+    assert "3 years" in note and "Water years" in note
+    boxes = page.evaluate("""() => {
+        const gd = document.querySelector('#records-climatology .js-plotly-plot');
+        const title = gd.querySelector('.gtitle').getBoundingClientRect();
+        const marks = Array.from(gd.querySelectorAll('.bars .point path, .bars .point text, .errorbar path'));
+        return {title_bottom: title.bottom, text: gd.querySelector('.gtitle').textContent,
+                top_mark: Math.min(...marks.map(m => m.getBoundingClientRect().top))};
+    }""")
+    assert "3 years" in boxes["text"]
+    assert boxes["title_bottom"] <= boxes["top_mark"]  # the note never covers a bar
+
+
+def test_water_years_and_the_river_ratio_known_by_construction(long_page, long_budget, tmp_path):
+    page = long_page
+    page.locator("#records-period label").filter(has_text="water year").first.click()
+    page.wait_for_function(
+        "(document.querySelector('#records-table tbody tr td') || {}).textContent === 'WY2022'",
+        timeout=60_000)
+    rows = _rows(page, "#records-table")
+    assert [r[0] for r in rows] == ["WY2022", "WY2023", "WY2024"]
+    assert not page.locator("#records-table tr.flagged").count()
+    pme = pd.Series(long_budget["p_minus_e"].values * 86400.0,
+                    index=pd.DatetimeIndex(long_budget["time"].values))
+    ref = pme.resample("YS-OCT").mean()  # pandas: years starting 1 October
+    head = page.evaluate("""() => Array.from(document.querySelectorAll('#records-table th'))
+                            .map(th => th.textContent)""")
+    col = head.index("P − E mean (mm/day)")
+    np.testing.assert_allclose([_num(r[col]) for r in rows], ref.values, rtol=1e-3)
+
+    # an invented gauge carrying exactly half of the box's P − E (m³/s by hand: mm/day / 1000
+    # × area / 86400): the long-term ratio is 0.5 by construction
+    area = float(long_budget.attrs["region_area_m2"])
+    flow = pme / 1000.0 * area / 86400.0 * 0.5
+    lines = ["date,flow_m3_s"] + [f"{t:%Y-%m-%d},{v!r}" for t, v in flow.items()]
+    path = tmp_path / "invented_gauge.csv"
+    path.write_text("\n".join(lines))
+    page.locator("#gauge-upload").scroll_into_view_if_needed()
+    page.set_input_files("#gauge-upload input[type=file]", str(path))
+    page.wait_for_function(
+        "document.querySelector('#discharge-summary').textContent.includes('ratio')",
+        timeout=60_000)
+    summary = page.locator("#discharge-summary").inner_text()
+    assert "WY2022–WY2024 (3 water years)" in summary
+    assert "ratio discharge / (P − E) 0.5;" in summary and "gauge missing 0 %" in summary
+    table = _rows(page, "#discharge-table")
+    assert table[-1][0] == "long-term (3 years)" and table[-1][4] == "0.5"
