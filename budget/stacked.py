@@ -3,10 +3,13 @@
 Each region's stencil (budget.stencil) acts on its own touched cells.  Moved onto the union of
 all regions' cells and stacked row-wise, the boundary pieces of every region form one
 interpolation matrix (pieces × union cells), and the cover and divergence weights one matrix
-each (regions × union cells).  A block of time steps then costs three sparse products for the
-vapour terms, whatever the number of regions, and the per-region and per-edge sums are sparse
-sums over the pieces.  The formulas are those of a single region (ledger.block_sums,
-closure.block_sums, attribution.block_sums), written for the stacked operator:
+each (regions × union cells).  Sums over pieces that are linear in the fields (per-edge import,
+∮ W dl, the dry-air and total-water imports) are folded into the interpolation once, as
+matrices on the cells; only the terms that are not linear (inflow, outflow, IVT, the
+atmospheric-river inflow) need the values at every piece.  A block of time steps then costs a
+few sparse products, whatever the number of regions.  The formulas are those of a single
+region (ledger.block_sums, closure.block_sums, attribution.block_sums), written for the
+stacked operator:
 
 - outward flux of a piece: fu·(interp Qu) + fv·(interp Qv), with fu, fv the piece's normal
   factors (budget.stencil.Boundary.normal_factors), which is what ``Stencil.bu``/``bv`` hold;
@@ -15,6 +18,7 @@ closure.block_sums, attribution.block_sums), written for the stacked operator:
 
 The result is a `budget.blocks.BlockSums` whose arrays carry a region axis after time; per-edge
 sums are padded with NaN to the largest edge count (`BlockSums.of_region` cuts one region out).
+The sums add in another order than a single run's, so they agree with it to round-off;
 tests/test_multi.py checks every region against its single run.
 """
 
@@ -56,11 +60,16 @@ class StackedStencil:
     fv: np.ndarray
     region_sum: sp.csr_matrix  # (region × piece): 1 for the region's pieces
     length_sum: sp.csr_matrix  # (region × piece): piece lengths, m
-    open_sum: sp.csr_matrix  # (region × piece): open piece lengths (closure.open_lengths), m
     edge_sum: sp.csr_matrix  # (edge × piece): every region's edges, one after another
-    edge_open: sp.csr_matrix  # (edge × piece): open piece lengths per edge, m
-    cell_sums: sp.csr_matrix  # (3 region × cell): cover (m2 inside each region), then the
-    #   area-method divergence weights of Qu, then of Qv (Stencil.cover, div_u, div_v)
+    edge_region_sum: sp.csr_matrix  # (region × edge): 1 for the region's edges
+    # linear sums over the pieces folded into the interpolation (matrices on the cells)
+    open_cells: sp.csr_matrix  # (region × cell): ∮ x dl over open pieces (closure.open_lengths), m
+    edge_open_cells: sp.csr_matrix  # (edge × cell): the same per edge
+    edge_bu: sp.csr_matrix  # (edge × cell): outward flux through each edge from Qu (Stencil.bu summed)
+    edge_bv: sp.csr_matrix
+    cover: sp.csr_matrix  # (region × cell): m2 of each cell inside the region (Stencil.cover)
+    div_u: sp.csr_matrix  # (region × cell): area-method divergence weights (Stencil.div_u, div_v)
+    div_v: sp.csr_matrix
     area: np.ndarray  # (region,) m2
     total_length: np.ndarray  # (region,) m
     edge_region: np.ndarray  # (edge,) region of each edge
@@ -91,16 +100,29 @@ class StackedStencil:
         piece_edge = np.concatenate([edge_start[k] + np.asarray(st.boundary.edge) for k, st in enumerate(stencils)])
         shape_e = (int(edge_start[-1]), int(start[-1]))
         edges = sp.csr_matrix((np.ones(shape_e[1]), (piece_edge, np.arange(shape_e[1]))), shape=shape_e)
+        fu, fv = np.concatenate([f[0] for f in factors]), np.concatenate([f[1] for f in factors])
+        # the linear sums over pieces, one sparse product with the interpolation: rows are
+        # ∮ over open pieces per region, the same per edge, the outward flux per edge from Qu, from Qv
+        nreg, (ne, npc) = len(stencils), shape_e
+        piece_region = np.repeat(np.arange(nreg), npiece)
+        lw = np.concatenate(opens)
+        rows = np.concatenate([piece_region, nreg + piece_edge, nreg + ne + piece_edge, nreg + 2 * ne + piece_edge])
+        fold = sp.csr_matrix((np.concatenate([lw, lw, fu, fv]), (rows, np.tile(np.arange(npc), 4))),
+                             shape=(nreg + 3 * ne, npc)) @ interp
+        fold = sp.csr_matrix(fold)
         return cls(
             cells=cells, interp=interp,
-            fu=np.concatenate([f[0] for f in factors]), fv=np.concatenate([f[1] for f in factors]),
+            fu=fu, fv=fv,
             region_sum=_rows([(s, np.ones(s.size)) for s in spans], shape_e[1]),
             length_sum=_rows(list(zip(spans, lengths)), shape_e[1]),
-            open_sum=_rows(list(zip(spans, opens)), shape_e[1]),
             edge_sum=edges,
-            edge_open=sp.csr_matrix((np.concatenate(opens), (piece_edge, np.arange(shape_e[1]))), shape=shape_e),
-            cell_sums=_rows([(p, getattr(st, name)) for name in ("cover", "div_u", "div_v")
-                             for st, p in zip(stencils, positions)], n),  # a list: one row each
+            edge_region_sum=_rows([(np.arange(edge_start[k], edge_start[k + 1]), np.ones(nedge[k]))
+                                   for k in range(len(stencils))], shape_e[0]),
+            open_cells=fold[:nreg], edge_open_cells=fold[nreg:nreg + ne],
+            edge_bu=fold[nreg + ne:nreg + 2 * ne], edge_bv=fold[nreg + 2 * ne:],
+            cover=_rows([(p, st.cover) for st, p in zip(stencils, positions)], n),
+            div_u=_rows([(p, st.div_u) for st, p in zip(stencils, positions)], n),
+            div_v=_rows([(p, st.div_v) for st, p in zip(stencils, positions)], n),
             area=np.array([float(st.area) for st in stencils]),
             total_length=np.array([x.sum() for x in lengths]),
             edge_region=np.repeat(np.arange(len(stencils)), nedge),
@@ -126,42 +148,43 @@ class StackedStencil:
         return self.padded(np.asarray(m @ x)).transpose(2, 0, 1)
 
 
-class _Products:
-    """A block's cell arrays (time, cell) side by side as one C-ordered (cell, k·time) matrix,
-    so that each stacked operator costs one sparse product for all of them."""
+class _Cells:
+    """A block's cell arrays (time, cell), each transposed once into a C-ordered (cell, time)
+    block, so that sparse products need no further copies: ``cells[name]``."""
 
     def __init__(self, arrays: dict):
         first = next(iter(arrays.values()))
-        self.nt = first.shape[0]
         self.slot = {name: k for k, name in enumerate(arrays)}
-        self.cells = np.empty((first.shape[1], self.nt * len(arrays)))
+        self.data = np.empty((len(arrays), first.shape[1], first.shape[0]))
         for k, a in enumerate(arrays.values()):
-            self.cells[:, k * self.nt:(k + 1) * self.nt] = a.T
+            self.data[k] = a.T
 
-    def apply(self, m) -> dict:
-        """``m @ x`` for every array x: (rows of m, time) each."""
-        out = np.asarray(m @ self.cells)
-        return {name: out[:, k * self.nt:(k + 1) * self.nt] for name, k in self.slot.items()}
+    def __getitem__(self, name) -> np.ndarray:
+        return self.data[self.slot[name]]
 
 
 def block_sums(op: StackedStencil, c, vertical=None, attribute=None) -> BlockSums:
     """Every region's per-time-step sums of one block's columns ``c`` (a ledger.Columns on the
-    union's cells): a BlockSums with a region axis after time."""
+    union's cells): a BlockSums with a region axis after time.
+
+    Values at the pieces are needed where a sum is not linear (inflow, outflow, IVT, the AR
+    inflow); every linear sum over pieces is folded into one matrix on the cells."""
     extra = c.extra or {}
     arrays = {"qu": c.qu, "qv": c.qv, "w": c.w}
     arrays.update({k: extra[k] for k in ("fu", "fv", "mu", "tqu", "tqv", "tw", *closure.OBSERVED_ROLES) if k in extra})
-    prod = _Products(arrays)
-    p = prod.apply(op.interp)  # values at every piece, (piece, time)
-    lin = prod.apply(op.cell_sums)  # cover, div_u, div_v rows of every region, (3 region, time)
-    nr = op.nregion
+    x = _Cells(arrays)
+    pu, pv = op.interp @ x["qu"], op.interp @ x["qv"]  # (piece, time)
 
     def area_mean(name):  # Σ cover·x / area
-        return lin[name][:nr].T / op.area
+        return (op.cover @ x[name]).T / op.area
 
     def divergence(ku, kv):  # area-mean divergence, area method
-        return (lin[ku][nr:2 * nr] + lin[kv][2 * nr:]).T
+        return (op.div_u @ x[ku] + op.div_v @ x[kv]).T
 
-    flux = op.fu[:, None] * p["qu"] + op.fv[:, None] * p["qv"]  # outward, kg s-1 per piece
+    def edge_import(ku, kv):  # (edge, time)
+        return -(op.edge_bu @ x[ku] + op.edge_bv @ x[kv])
+
+    flux = op.fu[:, None] * pu + op.fv[:, None] * pv  # outward, kg s-1 per piece
     inward = np.clip(-flux, 0, None)
     sums = dict(
         imp=-op.per_region(op.region_sum, flux),
@@ -170,33 +193,29 @@ def block_sums(op: StackedStencil, c, vertical=None, attribute=None) -> BlockSum
         edge=-op.edges(op.edge_sum, flux),
         adiv=divergence("qu", "qv"),
         w=area_mean("w"),
-        w_edge=op.edges(op.edge_open, p["w"]),
+        w_edge=op.padded(op.edge_open_cells @ x["w"]).transpose(2, 0, 1),
     )
-
-    def import_(ku, kv):
-        return -op.per_region(op.region_sum, op.fu[:, None] * p[ku] + op.fv[:, None] * p[kv])
-
     # dry air, total water and the files' P and E, as closure.block_sums per region
     if "mu" in extra:
-        dflux = op.fu[:, None] * p["fu"] + op.fv[:, None] * p["fv"]  # outward dry-air flux per piece
-        sums.update(dimp=-op.per_region(op.region_sum, dflux), dedge=-op.edges(op.edge_sum, dflux),
-                    dadiv=divergence("fu", "fv"), mu=area_mean("mu"), mu_len=op.per_region(op.open_sum, p["mu"]))
+        dedge = edge_import("fu", "fv")
+        sums.update(dimp=op.per_region(op.edge_region_sum, dedge), dedge=op.padded(dedge).transpose(2, 0, 1),
+                    dadiv=divergence("fu", "fv"), mu=area_mean("mu"), mu_len=op.per_region(op.open_cells, x["mu"]))
     if "tw" in extra:
-        sums.update(timp=import_("tqu", "tqv"), tadiv=divergence("tqu", "tqv"), tw=area_mean("tw"),
-                    tw_len=op.per_region(op.open_sum, p["tw"]))
+        sums.update(timp=op.per_region(op.edge_region_sum, edge_import("tqu", "tqv")), tadiv=divergence("tqu", "tqv"),
+                    tw=area_mean("tw"), tw_len=op.per_region(op.open_cells, x["tw"]))
     for r in closure.OBSERVED_ROLES:
         if r in extra:
             sums[f"{r}_raw"] = area_mean(r)
     if attribute is not None:
-        sums.update(_attribution_sums(op, attribute, p, inward))
+        sums.update(_attribution_sums(op, attribute, pu, pv, inward))
         if attribute.layers is not None and c.levels is not None:
             sums["layer_edge"] = _layer_edges(op, vertical, attribute.layers, c.levels)
     return BlockSums(**sums, flagged=dict(c.flagged or {}))
 
 
-def _attribution_sums(op: StackedStencil, attribute, p: dict, inward) -> dict:
+def _attribution_sums(op: StackedStencil, attribute, pu, pv, inward) -> dict:
     """Mean boundary IVT and the atmospheric-river inflow, as attribution.boundary_sums."""
-    ivt = np.sqrt(p["qu"] * p["qu"] + p["qv"] * p["qv"])  # |Q| (np.hypot, to round-off, is slower)
+    ivt = np.sqrt(pu * pu + pv * pv)  # |Q| (np.hypot, to round-off, is slower)
     ar = np.where(ivt >= attribute.ar_threshold, inward, 0.0)
     return {
         "ivt_bnd": op.per_region(op.length_sum, ivt) / op.total_length,
@@ -213,6 +232,6 @@ def _layer_edges(op: StackedStencil, vertical, layers, lv: dict) -> np.ndarray:
     qu_l = layer_integrals(lv["qu"], frac, level_axis=1)  # (layer, time, cell)
     qv_l = layer_integrals(lv["qv"], frac, level_axis=1)
     nl, nt, nc = qu_l.shape
-    p = _Products({"qu": qu_l.reshape(-1, nc), "qv": qv_l.reshape(-1, nc)}).apply(op.interp)  # (piece, layer*time)
-    edge = -np.asarray(op.edge_sum @ (op.fu[:, None] * p["qu"] + op.fv[:, None] * p["qv"]))  # (edge, layer*time)
+    x = _Cells({"qu": qu_l.reshape(-1, nc), "qv": qv_l.reshape(-1, nc)})  # (cell, layer*time) each
+    edge = -(op.edge_bu @ x["qu"] + op.edge_bv @ x["qv"])  # (edge, layer*time)
     return op.padded(edge.reshape(-1, nl, nt)).transpose(3, 0, 2, 1)
