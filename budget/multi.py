@@ -103,7 +103,7 @@ def _job_key(fields, ds, named_regions, op: StackedStencil, chunk: int, attribut
 
     geo = [(str(rid), r.to_geojson() if hasattr(r, "to_geojson") else None) for rid, r in named_regions]
     return tokenize("many-regions", ledger.source_token(fields, ds), json.dumps(geo, sort_keys=True, default=str),
-                    int(chunk), repr(attribute), op.cells.touched, op.interp.data, op.cell_sums.data, op.area)
+                    int(chunk), repr(attribute), op.cells.touched, op.interp.data, op.cover.data, op.edge_bu.data, op.area)
 
 
 def compute_each(fields, named_regions, **kw) -> list[xr.Dataset]:
