@@ -8,8 +8,9 @@ The budget: choosing a region (or a method, correction or field set) makes a req
 ``want`` store) and starts a job in the server's thread pool (app.jobs); ``show_budget`` waits
 briefly for it, so a short job is drawn in the same round trip, and otherwise shows every panel
 as "computing" with a progress bar of real steps and a Cancel button, polling until the job
-ends.  No panel ever shows another region's numbers under this region's name: every title
-names the region it belongs to.
+ends (``poll_budget`` carries only the progress; when the job ends it tells
+``show_budget`` to draw, once).  No panel ever shows another region's numbers under this
+region's name: every title names the region it belongs to.
 """
 
 from __future__ import annotations
@@ -133,9 +134,9 @@ def _color_range(state, source_id, field, snap, fields):
     Input("region-select", "value"),
     Input("vertices", "data"),
     Input("map-tool", "value"),
-    Input("region-message", "children"),  # a refused drawing is cleared from the map
+    Input("map-refused", "data"),  # a refused drawing is wiped off the map (app/regions.py)
 )
-def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool, _msg):
+def draw_map(source_id, field, time_index, arrows, regions, selected, vertices, tool, _refused):
     try:
         state = current()
         fields = state.fields(source_id)
@@ -175,11 +176,11 @@ def start_budget(state, want: dict, key: str, again: bool = False):
 
     def work(progress):
         fields = state.fields(source)
+        options = job_options(method, correction, attribution, fields.kind)
         if fields.ds.sizes["time"] > state.settings.long_steps:  # a long record: the pool
             return state.pool().run(key, progress, state.checked_paths(source), geojson,
-                                    name, method, correction)
+                                    name, options)
         region = region_from_geojson(geojson, name=name)
-        options = job_options(method, correction, attribution, fields.kind)
         ds = compute(fields, region, options=options,
                      run=RunOptions(scheduler="sync", progress=progress))
         return ds.load()
@@ -237,7 +238,13 @@ BUDGET_OUT = {
     "dl_reason": Output("dl-reason", "children"),
     "budget_actions": Output("budget-actions", "style"),
     "kinds": Output("budget-kind", "options"),
+    # greyed (CSS class "computing") while the chosen region's budget computes
+    "series_class": Output("series-panel", "className"),
+    "profile_class": Output("profile-panel", "className"),
+    "curtain_class": Output("curtain-panel", "className"),
+    "table_class": Output("budget-table", "className"),
 }
+PANEL, PANEL_COMPUTING = "panel", "panel computing"
 KIND_MISSING = {
     "dry": "These fields are column totals without winds on levels, so they carry no dry-air "
            "mass budget; choose Water vapour.",
@@ -255,17 +262,32 @@ def _blank(text: str, message: str = "", message_class: str = "notice", *, again
             "poll_off": True, "progress": None, "progress_max": None, "progress_text": "",
             "running": HIDDEN, "again": SHOWN if again else HIDDEN, "csv_off": True,
             "nc_off": True, "dl_reason": reason,
-            "budget_actions": {} if actions else HIDDEN, "kinds": no_update}
+            "budget_actions": {} if actions else HIDDEN, "kinds": no_update,
+            **_panel_classes(PANEL)}
+
+
+def _panel_classes(cls: str) -> dict:
+    return {k: cls for k in ("series_class", "profile_class", "curtain_class", "table_class")}
+
+
+def _steps(job) -> str:
+    return f"step {job.done} of {job.total}" if job.total else "starting"
+
+
+def _progress(job, name: str) -> tuple:
+    """The progress bar's value and max and its text, from the job's real steps."""
+    return (str(job.done) if job.total else None, str(job.total) if job.total else None,
+            f"{name}: {_steps(job)}")
 
 
 def _computing(job, name: str) -> dict:
-    steps = (f"step {job.done} of {job.total}" if job.total else "starting")
-    out = _blank(f"Computing the budget of {name}… ({steps})",
+    out = _blank(f"Computing the budget of {name}… ({_steps(job)})",
                  reason=f"Downloads wait for the budget of {name}.")
-    out.update(poll_off=False, running=SHOWN,
-               progress=str(job.done) if job.total else None,
-               progress_max=str(job.total) if job.total else None,
-               progress_text=f"{name}: {steps}")
+    out.update(_panel_classes(PANEL_COMPUTING))
+    value, top, text = _progress(job, name)
+    out.update(table=html.P(f"Computing the budget of {name}…", className="muted small"),
+               poll_off=False, running=SHOWN, progress=value, progress_max=top,
+               progress_text=text)
     return out
 
 
@@ -273,9 +295,9 @@ def _computing(job, name: str) -> dict:
     output=BUDGET_OUT,
     inputs=dict(want=Input("want", "data"), units=Input("units", "value"),
                 time_index=Input("time", "value"), period=Input("period", "value"),
-                kind=Input("budget-kind", "value"), _tick=Input("budget-poll", "n_intervals")),
+                kind=Input("budget-kind", "value"), _ready=Input("budget-ready", "data")),
 )
-def show_budget(want, units, time_index, period, kind, _tick):
+def show_budget(want, units, time_index, period, kind, _ready=None):
     if not want:
         return _blank("Draw a region on the map to see its budget.", actions=False)
     name = want.get("name") or "the region"
@@ -293,7 +315,7 @@ def show_budget(want, units, time_index, period, kind, _tick):
         return _blank(f"No budget for {name}.", "This page's request does not match the "
                       "server's fields any more (they changed, or the page is older than the "
                       "server); choose the region again.", "notice error")
-    polled = _trigger() == "budget-poll"
+    polled = _trigger() == "budget-ready"  # poll_budget saw the job end
     ds = state.results.get(key)
     if ds is None:
         job = state.jobs.get(key) or start_budget(state, want, key)
@@ -316,6 +338,27 @@ def show_budget(want, units, time_index, period, kind, _tick):
                 out = {k: (v if k in keep else no_update) for k, v in out.items()}
             return out
     return _panels(ds, want, name, units, time_index, period, kind or "vapour")
+
+
+@callback(
+    Output("budget-ready", "data"),
+    Output("budget-poll", "disabled", allow_duplicate=True),
+    Output("budget-progress", "value", allow_duplicate=True),
+    Output("budget-progress", "max", allow_duplicate=True),
+    Output("budget-progress-text", "children", allow_duplicate=True),
+    Input("budget-poll", "n_intervals"),
+    State("want", "data"),
+    prevent_initial_call=True,
+)
+def poll_budget(tick, want):
+    """While the chosen region's job runs: its progress only (a few hundred bytes, so a
+    poll never outlives the next one, which would make the page drop its answer).  Once the
+    job has ended, ``budget-ready`` changes and show_budget draws the panels, once."""
+    key = (want or {}).get("key")
+    job = current().jobs.get(key) if key else None
+    if job is not None and job.pending:
+        return (no_update, False, *_progress(job, want.get("name") or "the region"))
+    return {"key": key, "tick": tick}, True, no_update, no_update, no_update
 
 
 @callback(
@@ -388,7 +431,10 @@ def figures_table(ds, units, lo, hi, kind, name, period_text):
         html.Tr([html.Td(r["term"]), html.Td(r["mean"], className="num"),
                  html.Td(r["total"], className="num")]) for r in rows
     ])
-    out = [html.Table([caption, head, body], className="totals")]
+    from .figures_records import flagged_text  # the plausibility counts (issue 12)
+
+    foot = html.Tfoot(html.Tr(html.Td(flagged_text(ds), colSpan=3, className="flag-counts")))
+    out = [html.Table([caption, head, body, foot], className="totals")]
     if edges:
         ehead = html.Thead(html.Tr([html.Th("edge"), html.Th("mean import"),
                                     html.Th("direction")]))

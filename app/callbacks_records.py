@@ -122,10 +122,8 @@ def period_table_view(ds, frame, term, name, choice):
                 title="low coverage: totals and means left empty" if r["flagged"] else None)
         for r in rows
     ])
-    counts = fr.flagged_counts(ds)
-    text = ("Values flagged by the plausibility checks and accepted: "
-            + (", ".join(f"{var}: {n:,} values" for var, n in counts) if counts else "none"))
-    foot = html.Tfoot(html.Tr(html.Td(text, colSpan=len(head), className="flag-counts")))
+    foot = html.Tfoot(html.Tr(html.Td(fr.flagged_text(ds), colSpan=len(head),
+                                      className="flag-counts")))
     return html.Table([caption, html.Thead(html.Tr([html.Th(h) for h in head])), body, foot],
                       className="totals records-periods")
 

@@ -65,7 +65,11 @@ def invented_inputs(paths, region_name: str = "") -> bool:
     """Whether the inputs say they are invented (the sample's global attributes say so)."""
     if "invented" in region_name.lower():
         return True
+    from budget.grib import is_grib
+
     for path in paths:
+        if is_grib(str(path)):
+            continue  # never the sample; and xarray would write cfgrib's index beside the input
         try:
             with xr.open_dataset(path) as ds:
                 text = " ".join(str(ds.attrs.get(k, "")) for k in ("title", "comment", "institution"))
@@ -78,7 +82,7 @@ def invented_inputs(paths, region_name: str = "") -> bool:
 
 def mean_snapshot(fields, times) -> tuple[xr.Dataset, int]:
     """Period-mean column fields (IVT, convergence) over the field steps at ``times``."""
-    from budget.maps import column_snapshot
+    from budget.maps import display_snapshot  # lon-lat view of rotated/projected grids
 
     steps = np.flatnonzero(np.isin(fields.times, np.asarray(times, "datetime64[ns]")))
     if steps.size == 0:
@@ -87,7 +91,7 @@ def mean_snapshot(fields, times) -> tuple[xr.Dataset, int]:
         steps = steps[np.linspace(0, steps.size - 1, MAP_STEP_LIMIT).round().astype(int)]
     total = None
     for i in steps:
-        snap = column_snapshot(fields, int(i))[["ivt_u", "ivt_v", "convergence"]].drop_vars("time")
+        snap = display_snapshot(fields, int(i))[["ivt_u", "ivt_v", "convergence"]].drop_vars("time")
         total = snap if total is None else total + snap
     mean = total / steps.size
     mean["ivt"] = np.hypot(mean["ivt_u"], mean["ivt_v"])  # magnitude of the mean transport
@@ -96,10 +100,10 @@ def mean_snapshot(fields, times) -> tuple[xr.Dataset, int]:
 
 def snapshots(fields, times) -> list[xr.Dataset]:
     """One column snapshot per budget time step, for animations."""
-    from budget.maps import column_snapshot
+    from budget.maps import display_snapshot  # lon-lat view of rotated/projected grids
 
     steps = np.flatnonzero(np.isin(fields.times, np.asarray(times, "datetime64[ns]")))
-    return [column_snapshot(fields, int(i)) for i in steps]
+    return [display_snapshot(fields, int(i)) for i in steps]
 
 
 def figure_data(fields=None, region=None, budget=None, start=None, end=None, with_map: bool = True,

@@ -11,7 +11,6 @@ numbers it shows.
 from __future__ import annotations
 
 import json
-import math
 
 import numpy as np
 import pandas as pd
@@ -142,6 +141,14 @@ def flagged_counts(ds) -> list[tuple[str, int]]:
     except (TypeError, ValueError):
         return []
     return sorted(((str(k), int(n)) for k, n in counts.items()), key=lambda kv: (-kv[1], kv[0]))
+
+
+def flagged_text(ds) -> str:
+    """The line under a period table: values the plausibility checks flagged and accepted,
+    per input variable, over the whole computed record."""
+    counts = flagged_counts(ds)
+    return ("Values flagged by the plausibility checks and accepted (whole record): "
+            + (", ".join(f"{var}: {n:,}" for var, n in counts) if counts else "none"))
 
 
 def period_figure(ds, frame, term: str, name: str, choice: str) -> go.Figure:
@@ -373,7 +380,3 @@ def overlay_figure(series: list[tuple[str, object]], term: str = "p_minus_e",
 def _escape(text: str) -> str:
     """Region names are user text: no markup reaches Plotly's HTML-like labels."""
     return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-
-
-def finite(value) -> bool:
-    return value is not None and math.isfinite(float(value))

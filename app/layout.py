@@ -202,7 +202,7 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         ]),
         html.Button("Start again", id="budget-again", className="btn primary small",
                     style={"display": "none"}),
-        html.Div(id="budget-table"),
+        html.Div(id="budget-table", className="panel"),
         html.Div(className="period", children=[
             html.Span("Period for the table", className="control-label"),
             dcc.RangeSlider(id="period", min=0, max=1, step=1, value=[0, 1], marks=None,
@@ -222,13 +222,19 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         cls="side-card", id="budget-card",
     )
 
-    series_card = _card("Through the event", dcc.Graph(id="series", config=PLOT_CONFIG,
-                                                      style={"height": "440px"}),
+    # each panel sits in a Div that carries its state ("panel computing" greys it): a Graph
+    # does not redraw for a new className (dash 4)
+    series_card = _card("Through the event",
+                        html.Div(dcc.Graph(id="series", config=PLOT_CONFIG,
+                                           style={"height": "440px"}),
+                                 id="series-panel", className="panel"),
                         cls="wide-card")
     profile_card = _card(
         "Where it comes in",
-        dcc.Graph(id="profile", config=PLOT_CONFIG, style={"height": "260px"}),
-        dcc.Graph(id="curtain", config=PLOT_CONFIG, style={"height": "300px"}),
+        html.Div(dcc.Graph(id="profile", config=PLOT_CONFIG, style={"height": "260px"}),
+                 id="profile-panel", className="panel"),
+        html.Div(dcc.Graph(id="curtain", config=PLOT_CONFIG, style={"height": "300px"}),
+                 id="curtain-panel", className="panel"),
         cls="wide-card",
     )
 
@@ -254,9 +260,11 @@ def build_layout(sources: list[dict], upload_limit_mb: float, initial_regions=No
         footer,
         dcc.Store(id="regions", data=initial_regions),
         dcc.Store(id="vertices", data=[]),
+        dcc.Store(id="map-refused", data=None),  # when a drawing was refused (app/regions.py)
         dcc.Store(id="upload-held", data=None),
         dcc.Store(id="want", data=None),
         dcc.Interval(id="budget-poll", interval=300, disabled=True),
+        dcc.Store(id="budget-ready", data=None),  # the job ended: draw (app/callbacks.py)
         dcc.Download(id="download-region"),
         dcc.Download(id="download-csv"),
         dcc.Download(id="download-nc"),

@@ -13,6 +13,7 @@ from __future__ import annotations
 import os
 import tempfile
 import threading
+import time
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
@@ -25,10 +26,12 @@ def _init(queue, marker_dir: str) -> None:
     _WORKER.update(queue=queue, markers=marker_dir, fields={})
 
 
-def _compute(key: str, paths: tuple, geojson: dict, name: str, method: str, correction: str):
-    """Runs in a worker: the budget of one region, fields opened once per worker."""
+def _compute(key: str, paths: tuple, geojson: dict, name: str, options, pace: float = 0.0):
+    """Runs in a worker: the budget of one region (``options``: budget.options.BudgetOptions,
+    as the server's threads use them), fields opened once per worker."""
     from budget.fields import open_fields
     from budget.ledger import compute
+    from budget.options import RunOptions
     from budget.region import region_from_geojson
 
     fields = _WORKER["fields"].get(paths)
@@ -40,21 +43,25 @@ def _compute(key: str, paths: tuple, geojson: dict, name: str, method: str, corr
         _WORKER["queue"].put((key, int(done), int(total)))
         if marker.exists():
             raise Cancelled()
+        if pace and done < total:
+            time.sleep(pace)
 
-    ds = compute(fields, region_from_geojson(geojson, name=name), method=method,
-                 profiles=True, scheduler="sync", progress=progress,
-                 mass_correction=False if correction == "off" else None)
+    run = RunOptions(scheduler="sync", progress=progress, block_steps=1 if pace else None)
+    ds = compute(fields, region_from_geojson(geojson, name=name), options=options, run=run)
     return ds.load()
 
 
 class ProcessPool:
     """``workers`` persistent spawned processes computing budgets of long records."""
 
-    def __init__(self, workers: int = 1):
+    def __init__(self, workers: int = 1, pace: float = 0.0):
         from multiprocessing import get_context
 
         ctx = get_context("spawn")
         self.workers = max(1, int(workers))
+        #: seconds a worker waits at each time step, one step per block (0: none; a test sets
+        #: it to press Cancel while a job runs, as it paces the engine in the server's threads)
+        self.pace = float(pace)
         self._queue = ctx.Queue()
         self._markers = tempfile.mkdtemp(prefix="fluxfence-cancel-")
         self._pool = ProcessPoolExecutor(self.workers, mp_context=ctx, initializer=_init,
@@ -81,7 +88,7 @@ class ProcessPool:
                 except Cancelled:
                     (Path(self._markers) / key).touch()
 
-    def run(self, key: str, progress, paths, geojson, name, method, correction):
+    def run(self, key: str, progress, paths, geojson, name, options):
         """Compute in a worker and wait; ``progress`` is called with the worker's steps (it
         raises Cancelled after Cancel, which tells the worker to stop)."""
         marker = Path(self._markers) / key
@@ -89,8 +96,8 @@ class ProcessPool:
         with self._lock:
             self._listeners[key] = progress
         try:
-            future = self._pool.submit(_compute, key, tuple(paths), geojson, name, method,
-                                       correction)
+            future = self._pool.submit(_compute, key, tuple(paths), geojson, name, options,
+                                       self.pace)
             while True:
                 try:
                     return future.result(timeout=0.25)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import base64
 import binascii
 import re
+import time
 import uuid
 from pathlib import Path
 
@@ -143,10 +144,26 @@ def upload_features(filename: str, data: bytes) -> list[dict]:
 # ---------------------------------------------------------------------------------------------
 # callbacks, one per trigger
 # ---------------------------------------------------------------------------------------------
-@callback(output=ADDED, inputs=dict(relayout=Input("map", "relayoutData")),
+#: a drawing on the map: the region outputs, and a stamp when the drawing was refused (the map
+#: listens to it to wipe the drawn shape off; it does not listen to the region message, which
+#: every region change rewrites, so one region change draws the map once)
+DRAWN = {**ADDED, "refused": _out("map-refused", "data")}
+
+
+def _stamp_refusal(answer: dict) -> dict:
+    answer = dict(answer)
+    answer["refused"] = time.time() if answer.get("regions", no_update) is no_update else no_update
+    return answer
+
+
+@callback(output=DRAWN, inputs=dict(relayout=Input("map", "relayoutData")),
           state=dict(regions=State("regions", "data")), prevent_initial_call=True)
 def drawn_on_map(relayout, regions):
     """A box or a closed shape drawn on the map becomes a region."""
+    return _stamp_refusal(_drawn_region(relayout, regions))
+
+
+def _drawn_region(relayout, regions):
     from budget.region import region_from_bbox, region_from_vertices
 
     shapes = (relayout or {}).get("shapes")
@@ -335,8 +352,7 @@ def region_selected(selected, regions, shown=None):
     """Choosing a region clears messages about another one.
 
     A region just added comes selected with its own message ("Added “name”…") and its name
-    set; leaving both alone also spares the map a second redraw (the map listens to the
-    message, and a second request would supersede the first one's drawing of the new region).
+    set: both are left as they are.
     """
     name = next((r["name"] for r in regions or [] if r["id"] == selected), "")
     if name and isinstance(shown, str) and f"“{name}”" in shown:

@@ -184,16 +184,14 @@ class AppState:
             self._pool.shutdown()
 
     def snapshot(self, source_id, time_index: int):
-        from budget.maps import column_snapshot, lonlat_view
-        from budget.stencil import Grid
+        from budget.maps import display_snapshot
 
         key = (str(source_id), int(time_index))
         hit = self.snapshots.get(key)
         if hit is not None:
             return hit
-        fields = self.fields(source_id)
         # rotated and projected grids are drawn on a longitude-latitude view (display only)
-        snap = lonlat_view(column_snapshot(fields, int(time_index)), Grid.from_fields(fields))
+        snap = display_snapshot(self.fields(source_id), int(time_index))
         ny, nx = snap.sizes["lat"], snap.sizes["lon"]
         if ny * nx > MAP_MAX_CELLS:
             stride = int(np.ceil(np.sqrt(ny * nx / MAP_MAX_CELLS)))

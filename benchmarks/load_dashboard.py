@@ -61,7 +61,8 @@ def _outputs(dep: dict) -> list[str]:
 
 
 class Page:
-    """The two budget callbacks of the dashboard, called as the page calls them."""
+    """The three budget callbacks of the dashboard (request, show, poll), called as the page
+    calls them."""
 
     def __init__(self, url: str):
         self.url = url
@@ -69,6 +70,7 @@ class Page:
             deps = json.loads(resp.read())
         self.request = next(d for d in deps if "want.data" in _outputs(d))
         self.show = next(d for d in deps if "series.figure" in _outputs(d))
+        self.poll = next(d for d in deps if "budget-ready.data" in _outputs(d))
 
     @staticmethod
     def _payload(dep: dict, values: dict, changed: str) -> dict:
@@ -92,11 +94,10 @@ class Page:
         want = want["response"]["want"]["data"]
         values = {"want.data": want, "units.value": "mm/day", "time.value": 0,
                   "period.value": [0, 20], "budget-kind.value": "vapour",
-                  "budget-poll.n_intervals": 0}
+                  "budget-ready.data": None, "budget-poll.n_intervals": 0}
         polls = 0
-        changed = "want.data"
+        out = _post(self.url, self._payload(self.show, values, "want.data"))["response"]
         while True:
-            out = _post(self.url, self._payload(self.show, values, changed))["response"]
             series = out.get("series", {}).get("figure")
             if series and any(t.get("name") == "P − E" for t in series.get("data", [])):
                 pme = array_values(next(t for t in series["data"] if t.get("name") == "P − E")["y"])
@@ -112,7 +113,11 @@ class Page:
             time.sleep(POLL_SECONDS)
             polls += 1
             values["budget-poll.n_intervals"] = polls
-            changed = "budget-poll.n_intervals"
+            tick = _post(self.url, self._payload(self.poll, values, "budget-poll.n_intervals"))
+            ready = tick.get("response", {}).get("budget-ready", {}).get("data")
+            if ready:  # the job has ended: the page draws its panels
+                values["budget-ready.data"] = ready
+                out = _post(self.url, self._payload(self.show, values, "budget-ready.data"))["response"]
 
 
 def boxes(n: int) -> list[dict]:

@@ -2,13 +2,15 @@
 
 A GRIB file is a sequence of messages, each one field on one level type. cfgrib groups the
 messages into hypercubes that share their keys; this module picks, for each budget role, the
-messages it needs — winds and humidity on one vertical type (isobaricInhPa / isobaricInPa),
+messages it needs — winds and humidity on one vertical type (isobaricInhPa / isobaricInPa, or
+hybrid model levels),
 surface pressure on `surface`, pre-integrated columns on `atmosphereSingleLayer`,
 `entireAtmosphere` or `surface` — and returns one dataset that looks like a CF NetCDF file:
 
 * the vertical coordinate is `level` (hPa or Pa, standard_name air_pressure) holding only the
   levels every level variable of the budget shares; levels dropped because one variable
-  lacks them are named in a warning (the GFS 2.5° product has no humidity at 20 hPa);
+  lacks them are named in a warning (the GFS 2.5° product has no humidity at 20 hPa); on model
+  levels it is the level number with a CF hybrid sigma-pressure coordinate from the pv array;
 * `time` is the valid time (analysis time plus forecast step);
 * winds carry the CF standard name that says how they are oriented: eastward_wind on
   longitude-latitude grids and when `uvRelativeToGrid` is 0, grid_eastward_wind when it is 1;
@@ -31,6 +33,9 @@ from .errors import FieldsError
 
 #: Vertical types read as pressure levels, in order of preference.
 PRESSURE_TYPES = {"isobaricInhPa": "hPa", "isobaricInPa": "Pa"}
+#: Hybrid sigma-pressure model levels: level k lies between interfaces k-1 and k of the
+#: message's pv array (a in Pa, then b), WMO GRIB2 code table 4.5 value 105.
+HYBRID_TYPE = "hybrid"
 #: Level types that hold surface fields and pre-integrated columns.
 SURFACE_TYPES = ("surface",)
 COLUMN_TYPES = ("atmosphereSingleLayer", "entireAtmosphere", "surface")
@@ -38,9 +43,13 @@ COLUMN_TYPES = ("atmosphereSingleLayer", "entireAtmosphere", "surface")
 LONLAT_TYPES = ("regular_ll", "regular_gg")
 #: GRIB keys cfgrib must read besides its defaults (grid shape of the Earth, rotation).
 EXTRA_KEYS = [
-    "shapeOfTheEarth", "radius", "uvRelativeToGrid", "projectionCentreFlag", "orientationOfTheGridInDegrees",
-    "angleOfRotationInDegrees",
+    "shapeOfTheEarth", "radius", "uvRelativeToGrid", "resolutionAndComponentFlags", "projectionCentreFlag",
+    "orientationOfTheGridInDegrees", "angleOfRotationInDegrees", "LaDInDegrees",
 ]
+#: Bit 5 of the resolution and component flags (GRIB1 table 7, GRIB2 flag table 3.3): winds
+#: relative to the grid's x/y axes. Read when ecCodes defines no uvRelativeToGrid for the grid
+#: template (its GRIB2 polar stereographic template, 3.20).
+GRID_RELATIVE_BIT = 8
 MAGIC = b"GRIB"
 #: File name endings taken as GRIB without reading the file (a file starting with "GRIB" is too).
 SUFFIXES = (".grib", ".grb", ".grib1", ".grib2", ".grb1", ".grb2")
@@ -86,12 +95,14 @@ def _cfgrib(path: str):
 
 def _index_path(path: str) -> str:
     """Where cfgrib keeps its message index: a private temporary folder, never beside the
-    input (an input is never an output). Keyed by the file's path, size and time stamp."""
+    input (an input is never an output). Keyed by the file's path, size, time stamp and the
+    keys read (EXTRA_KEYS)."""
     import hashlib
     import tempfile
 
     st = os.stat(path)
-    key = hashlib.sha256(f"{os.path.abspath(path)}|{st.st_size}|{st.st_mtime_ns}".encode()).hexdigest()[:24]
+    # the keys read are part of the index: an index built with other keys is refused by cfgrib
+    key = hashlib.sha256(f"{os.path.abspath(path)}|{st.st_size}|{st.st_mtime_ns}|{','.join(EXTRA_KEYS)}".encode()).hexdigest()[:24]
     folder = os.path.join(tempfile.gettempdir(), f"fluxfence-grib-index-{os.getuid()}")
     os.makedirs(folder, mode=0o700, exist_ok=True)
     return os.path.join(folder, key + ".{short_hash}.idx")
@@ -154,12 +165,15 @@ def _level_vars(by_type: dict, path: str):
         found = {n: v for n, v in by_type.get(vtype, {}).items() if n in wanted}
         if "u" in found or "v" in found:
             return vtype, found
-    for vtype in ("hybrid", "generalVertical", "sigma"):
+    found = {n: v for n, v in by_type.get(HYBRID_TYPE, {}).items() if n in wanted}
+    if "u" in found or "v" in found:
+        return HYBRID_TYPE, found
+    for vtype in ("generalVertical", "sigma"):
         if any(n in ("u", "v") for n in by_type.get(vtype, {})):
             raise FieldsError(
-                f"The winds in the GRIB file '{path}' are on {vtype} (model) levels, which Fluxfence does not "
-                "read from GRIB yet; request the fields on pressure levels (isobaricInhPa) or convert them to a "
-                "CF NetCDF with hybrid coefficients."
+                f"The winds in the GRIB file '{path}' are on {vtype} levels, which Fluxfence does not read from "
+                "GRIB; request the fields on pressure levels (isobaricInhPa) or hybrid model levels, or convert them "
+                "to a CF NetCDF with hybrid coefficients."
             )
     return None, {}
 
@@ -173,7 +187,7 @@ def _shared_levels(found: dict, vtype: str, path: str, warn: list):
     sets = {n: set(np.atleast_1d(v[vtype].values).tolist()) if vtype in v.dims or vtype in v.coords else set() for n, v in core.items()}
     shared = set.intersection(*sets.values()) if sets else set()
     everything = set.union(*sets.values()) if sets else set()
-    unit = PRESSURE_TYPES[vtype]
+    unit = "hPa" if vtype == "isobaricInhPa" else "Pa" if vtype in PRESSURE_TYPES else "(model level numbers)"
     if shared != everything:
         lacking = sorted(n for n, s in sets.items() if s != everything)
         dropped = sorted(everything - shared, reverse=True)
@@ -226,6 +240,9 @@ def _winds(var: xr.DataArray, path: str, grid_type: str) -> dict:
     """CF standard name of a wind component from the file's own orientation flag."""
     comp = "eastward" if var.name == "u" else "northward"
     flag = var.attrs.get("GRIB_uvRelativeToGrid")
+    bits = var.attrs.get("GRIB_resolutionAndComponentFlags")
+    if flag is None and isinstance(bits, (int, np.integer)):
+        flag = 1 if int(bits) & GRID_RELATIVE_BIT else 0
     if grid_type in LONLAT_TYPES and flag in (None, 0):
         return {"standard_name": f"{comp}_wind"}
     if flag in (0, 1):
@@ -343,7 +360,9 @@ def open_grib(path: str) -> GribInput:
             f"The messages of the GRIB file '{path}' are on different grids or times ({str(exc).splitlines()[0]}); "
             "split the file so that each holds one grid."
         ) from None
-    if "level" in ds.coords:
+    if "level" in ds.coords and vtype == HYBRID_TYPE:
+        ds = hybrid_coordinate(ds, path, by_type, warn)
+    elif "level" in ds.coords:
         ds["level"].attrs = {"units": PRESSURE_TYPES[vtype], "standard_name": "air_pressure", "long_name": "pressure", "positive": "down"}
     mapping = grid_mapping_of(raw[0], path)
     if mapping is not None:
@@ -352,6 +371,78 @@ def open_grib(path: str) -> GribInput:
             ds[n].attrs["grid_mapping"] = "crs"
     ds.attrs = {"source": path, "Conventions": "CF-1.8", "history": f"read from GRIB by Fluxfence (cfgrib) from {os.path.basename(path)}"}
     return GribInput(ds, path, warn, [f"{n}: {v.attrs['source_message']}" for n, v in out.items()])
+
+
+# -- hybrid model levels ----------------------------------------------------------------------
+def _pv(path: str):
+    """The pv array (a coefficients in Pa, then b) of the first hybrid-level message, or None."""
+    import eccodes
+
+    with open(path, "rb") as f:
+        while (h := eccodes.codes_grib_new_from_file(f)) is not None:
+            try:
+                if eccodes.codes_get(h, "typeOfLevel") == HYBRID_TYPE and eccodes.codes_get(h, "PVPresent"):
+                    return np.asarray(eccodes.codes_get_array(h, "pv"), float)
+            finally:
+                eccodes.codes_release(h)
+    return None
+
+
+def _log_surface_pressure(ds: xr.Dataset, path: str, by_type: dict) -> xr.Dataset:
+    """Surface pressure sp = exp(lnsp) when the file has lnsp (ECMWF: on hybrid level 1) but no sp."""
+    lnsp = next((v for t in (HYBRID_TYPE,) + SURFACE_TYPES for n, v in by_type.get(t, {}).items() if n == "lnsp"), None)
+    if "sp" in ds or lnsp is None:
+        return ds
+    var = _tidy(lnsp, path)
+    var = var.drop_vars([c for c in var.coords if c not in var.dims and c not in ("latitude", "longitude")])
+    sp = np.exp(var)
+    sp.attrs = {"units": "Pa", "standard_name": "surface_air_pressure", "long_name": "surface pressure",
+                "source_message": f"exp of the {var.attrs['source_message']}"}
+    try:
+        return ds.assign(sp=xr.align(sp, ds, join="exact")[0])
+    except ValueError:
+        raise FieldsError(
+            f"The log surface pressure 'lnsp' in the GRIB file '{path}' is not on the grid and times of the winds; "
+            "supply it for the same grid and times."
+        ) from None
+
+
+def hybrid_coordinate(ds: xr.Dataset, path: str, by_type: dict, warn: list) -> xr.Dataset:
+    """A CF hybrid sigma-pressure coordinate (CF appendix D, `ap: ap b: b ps: sp`, with bounds)
+    for model levels numbered k = 1..N, from the messages' pv array: level k lies between
+    interfaces k-1 and k, a in Pa and b dimensionless (WMO Manual on Codes, GRIB2 section 4)."""
+    pv = _pv(path)
+    if pv is None or pv.size < 4 or pv.size % 2:
+        raise FieldsError(
+            f"The model-level messages in the GRIB file '{path}' carry no vertical coefficients (pv array), so "
+            "their pressures cannot be known; write the messages with PVPresent=1 and the a/b coefficients."
+        )
+    a, b = pv[: pv.size // 2], pv[pv.size // 2:]
+    k = np.asarray(ds["level"].values, float).astype(int)
+    if k.min() < 1 or k.max() > a.size - 1:
+        raise FieldsError(
+            f"The model levels of the GRIB file '{path}' run to {k.max()}, but its pv array describes "
+            f"{a.size - 1} levels; supply messages whose pv array matches their levels."
+        )
+    ds = _log_surface_pressure(ds, path, by_type)
+    lev = ("level",)
+    ds = ds.assign(
+        ap=(lev, 0.5 * (a[k - 1] + a[k]), {"units": "Pa", "long_name": "hybrid coefficient a at the level"}),
+        b=(lev, 0.5 * (b[k - 1] + b[k]), {"units": "1", "long_name": "hybrid coefficient b at the level"}),
+        ap_bnds=(("level", "nv"), np.stack([a[k - 1], a[k]], axis=1), {"units": "Pa"}),
+        b_bnds=(("level", "nv"), np.stack([b[k - 1], b[k]], axis=1), {"units": "1"}),
+        level_bnds=(("level", "nv"), np.stack([k - 0.5, k + 0.5], axis=1).astype(float),
+                    {"formula_terms": "ap: ap_bnds b: b_bnds ps: sp"}),
+    )
+    ds = ds.set_coords(["ap", "b", "ap_bnds", "b_bnds", "level_bnds"])
+    ds["level"].attrs = {
+        "standard_name": "atmosphere_hybrid_sigma_pressure_coordinate", "long_name": "model level number",
+        "units": "1", "positive": "down", "formula_terms": "ap: ap b: b ps: sp", "bounds": "level_bnds",
+    }
+    if k.size < a.size - 1:
+        warn.append(f"Model levels {k.min()}..{k.max()} of {a.size - 1} are in {os.path.basename(path)}; the column "
+                    "integrals cover only the layers between them.")
+    return ds
 
 
 # -- joining GRIB with other files ------------------------------------------------------------

@@ -105,3 +105,9 @@ def lonlat_view(snapshot: xr.Dataset, grid, max_cells: int = VIEW_MAX_CELLS) -> 
     if "time" in snapshot.coords:
         coords["time"] = snapshot["time"]
     return xr.Dataset(out, coords=coords, attrs={"regridded_from": grid.extent_text()})
+
+
+def display_snapshot(fields, time_index: int) -> xr.Dataset:
+    """`column_snapshot` on a longitude-latitude grid for pictures (the dashboard's map, the
+    report figures): unchanged on lon-lat grids, `lonlat_view` on rotated and projected ones."""
+    return lonlat_view(column_snapshot(fields, time_index), Grid.from_fields(fields))

@@ -93,6 +93,10 @@ class Where:
 def _holds_time(path: str, t) -> bool:
     import xarray as xr
 
+    from .grib import is_grib
+
+    if is_grib(path):
+        return False  # xarray would write cfgrib's index beside the input (never an output)
     try:
         with xr.open_dataset(path) as ds:
             return "time" in ds.coords and bool(np.any(ds["time"].values == t))

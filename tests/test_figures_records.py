@@ -204,6 +204,7 @@ def test_flagged_counts_come_from_the_engine(write_nc):
     ds = compute(open_fields(write_nc(odd, "odd.nc")), region_from_bbox(5.0, 35.0, 15.0, 45.0),
                  scheduler="sync")
     assert fr.flagged_counts(ds) == [("q", 5)]
+    assert fr.flagged_text(ds).endswith("(whole record): q: 5")
     assert fr.flagged_counts(xr.Dataset(attrs={"flagged_values": json.dumps({})})) == []
 
 

@@ -106,7 +106,8 @@ def _tampered(monkeypatch, **attrs):
 
 
 def test_winds_of_unknown_orientation_are_refused(monkeypatch):
-    _tampered(monkeypatch, GRIB_uvRelativeToGrid=None)
+    # neither the uvRelativeToGrid key nor the component flags it is read from
+    _tampered(monkeypatch, GRIB_uvRelativeToGrid=None, GRIB_resolutionAndComponentFlags=None)
     with pytest.raises(FieldsError, match=r"orientation of the wind 'u' in the GRIB file .*nam.* cannot be told"):
         grib.open_grib(NAM)
 
@@ -381,3 +382,241 @@ def test_command_line_rh_reference_mixed_is_used_and_stated(tmp_path):
         w = float(ds["precipitable_water"].values[0])
     assert "IFS mixed phase" in how
     assert 10.0 < w < 12.03
+
+
+# -- GRIB written here with ecCodes: GRIB1, hybrid model levels, projected grid keys --------------
+# The values are invented smooth fields (not real weather); the NetCDF path that the GRIB budget is
+# compared with is itself checked against analytic answers (tests/test_budget_analytic.py,
+# tests/test_vertical.py). GRIB packs values at 24 bits here, so agreement is to about 1e-6.
+from tests.grib_writing import grid_lonlat, lonlat_keys, message, write_grib  # noqa: E402
+
+WLON = np.arange(0.0, 30.01, 1.5)
+WLAT = np.arange(30.0, 60.01, 1.5)
+WBOX = (6.0, 36.0, 24.0, 54.0)
+
+
+def _smooth(nlev: int, hours=(0, 6)):
+    """u, v, q on (time, level, lat, lon) with q decreasing upward, and ps, all invented."""
+    LON, LAT = np.meshgrid(np.radians(WLON), np.radians(WLAT))
+    t = np.arange(len(hours))[:, None, None, None]
+    k = np.arange(nlev)[None, :, None, None] / max(nlev - 1, 1)  # 0 at the top, 1 at the bottom
+    u = 8.0 + 12.0 * np.sin(2 * LON) * np.cos(LAT) * (1 + 0.1 * t) + 5.0 * k
+    v = 4.0 * np.cos(3 * LON + LAT) * (1 - 0.3 * k) + 0.5 * t
+    q = 0.012 * (0.05 + k**3) * (1 + 0.2 * np.sin(LON + 2 * LAT)) * (1 + 0.05 * t)
+    ps = (99000.0 + 1500.0 * np.cos(LON - LAT)) * (1 + 0.002 * t[:, 0])
+    return u, v, q, ps
+
+
+def _budget(path_or_ds):
+    from budget.fields import open_fields
+    from budget.ledger import compute
+    from budget.region import region_from_bbox
+
+    return compute(open_fields(path_or_ds), region_from_bbox(*WBOX), mass_correction=False)
+
+
+def _agree(a, b, rtol=2e-5):
+    for name in ("precipitable_water", "vapour_import", "boundary_convergence", "area_convergence", "p_minus_e"):
+        np.testing.assert_allclose(a[name].values, b[name].values, rtol=rtol, err_msg=name)
+
+
+def test_grib1_pressure_levels_give_the_netcdf_budget(tmp_path):
+    """GRIB edition 1 (ecCodes sample regular_ll_pl_grib1) read like the same fields in NetCDF."""
+    import eccodes
+    import xarray as xr
+
+    plev = np.array([300, 500, 700, 850, 925, 1000])
+    u, v, q, ps = _smooth(plev.size)
+    msgs = [message(n, "isobaricInhPa", p, a[ti, k, ::-1], 6 * ti)
+            for ti in range(2) for n, a in (("u", u), ("v", v), ("q", q)) for k, p in enumerate(plev)]
+    msgs += [message("sp", "surface", 0, ps[ti, ::-1], 6 * ti) for ti in range(2)]
+    path = tmp_path / "levels.grib1"
+    write_grib(path, "regular_ll_pl_grib1", lonlat_keys(WLON, WLAT), msgs)
+    with open(path, "rb") as f:  # it really is edition 1
+        h = eccodes.codes_grib_new_from_file(f)
+        assert eccodes.codes_get(h, "edition") == 1
+        eccodes.codes_release(h)
+    gi = grib.open_grib(path)
+    assert gi.ds["u"].attrs["standard_name"] == "eastward_wind" and gi.ds.sizes["level"] == plev.size
+    d4, d3 = ("time", "plev", "lat", "lon"), ("time", "lat", "lon")
+    nc = xr.Dataset(
+        {"ua": (d4, u, {"units": "m s-1", "standard_name": "eastward_wind"}),
+         "va": (d4, v, {"units": "m s-1", "standard_name": "northward_wind"}),
+         "hus": (d4, q, {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+         "ps": (d3, ps, {"units": "Pa", "standard_name": "surface_air_pressure"})},
+        coords={"time": np.array(["2031-03-01T00", "2031-03-01T06"], dtype="datetime64[ns]"),
+                "plev": ("plev", plev.astype(float), {"units": "hPa", "standard_name": "air_pressure"}),
+                "lat": ("lat", WLAT, {"units": "degrees_north"}), "lon": ("lon", WLON, {"units": "degrees_east"})},
+    )
+    _agree(_budget(str(path)), _budget(nc))
+
+
+PV_A = np.array([0.0, 2000.0, 5000.0, 8000.0, 6000.0, 2000.0, 0.0])  # Pa, interfaces top first
+PV_B = np.array([0.0, 0.0, 0.0625, 0.25, 0.5, 0.75, 1.0])  # exact in the pv array's 32-bit floats
+
+
+def _hybrid_grib(tmp_path, lnsp=True):
+    u, v, q, ps = _smooth(PV_A.size - 1)
+    levels = range(1, PV_A.size)
+    msgs = [message(n, "hybrid", lev, a[ti, lev - 1, ::-1], 6 * ti)
+            for ti in range(2) for n, a in (("u", u), ("v", v), ("q", q)) for lev in levels]
+    if lnsp:  # ECMWF's way: the log of surface pressure on model level 1
+        msgs += [message("lnsp", "hybrid", 1, np.log(ps[ti, ::-1]), 6 * ti) for ti in range(2)]
+    else:
+        msgs += [message("sp", "surface", 0, ps[ti, ::-1], 6 * ti) for ti in range(2)]
+    path = tmp_path / ("model_levels.grib2" if lnsp else "model_levels_sp.grib2")
+    write_grib(path, "regular_ll_pl_grib2", lonlat_keys(WLON, WLAT), msgs, pv=np.concatenate([PV_A, PV_B]))
+    return path, (u, v, q, ps)
+
+
+@pytest.mark.parametrize("lnsp", [True, False], ids=["lnsp", "sp"])
+def test_grib_hybrid_model_levels_give_the_netcdf_budget(tmp_path, lnsp):
+    """typeOfLevel hybrid with the a/b coefficients in the pv array, and lnsp or sp, read like
+    the same fields in a CF NetCDF on hybrid levels (CF appendix D, `ap: ap b: b ps: ps` with
+    bounds)."""
+    import xarray as xr
+
+    from budget.fields import open_fields
+
+    path, (u, v, q, ps) = _hybrid_grib(tmp_path, lnsp)
+    fields = open_fields(str(path))
+    assert type(fields.vertical).__name__ == "HybridLevels"
+    np.testing.assert_array_equal(fields.vertical.a_interface_pa, PV_A)
+    np.testing.assert_array_equal(fields.vertical.b_interface, PV_B)
+    # CF appendix D: the layers of a hybrid column add up to ps − p_top exactly (CHECKS.md)
+    ps0 = fields.ds["ps"].isel(time=0).values
+    np.testing.assert_allclose(fields.vertical.thickness(ps0).sum(axis=0), ps0 - PV_A[0], rtol=1e-12)
+    if lnsp:  # provenance says where ps came from
+        assert fields.ds["ps"].attrs["source_message"].startswith("exp of the GRIB messages shortName=lnsp")
+    d4, d3 = ("time", "lev", "lat", "lon"), ("time", "lat", "lon")
+    a_b = np.stack([PV_A[:-1], PV_A[1:]], axis=1)
+    b_b = np.stack([PV_B[:-1], PV_B[1:]], axis=1)
+    nc = xr.Dataset(
+        {"ua": (d4, u, {"units": "m s-1", "standard_name": "eastward_wind"}),
+         "va": (d4, v, {"units": "m s-1", "standard_name": "northward_wind"}),
+         "hus": (d4, q, {"units": "kg kg-1", "standard_name": "specific_humidity"}),
+         "ps": (d3, ps, {"units": "Pa", "standard_name": "surface_air_pressure"}),
+         "ap": ("lev", a_b.mean(axis=1), {"units": "Pa"}), "b": ("lev", b_b.mean(axis=1)),
+         "ap_bnds": (("lev", "nb"), a_b, {"units": "Pa"}), "b_bnds": (("lev", "nb"), b_b),
+         "lev_bnds": (("lev", "nb"), np.stack([np.arange(6) + 0.5, np.arange(6) + 1.5], axis=1),
+                      {"formula_terms": "ap: ap_bnds b: b_bnds ps: ps"})},
+        coords={"time": np.array(["2031-03-01T00", "2031-03-01T06"], dtype="datetime64[ns]"),
+                "lev": ("lev", np.arange(1.0, 7.0), {"standard_name": "atmosphere_hybrid_sigma_pressure_coordinate",
+                                                     "formula_terms": "ap: ap b: b ps: ps", "bounds": "lev_bnds"}),
+                "lat": ("lat", WLAT, {"units": "degrees_north"}), "lon": ("lon", WLON, {"units": "degrees_east"})},
+    )
+    _agree(_budget(str(path)), _budget(nc))
+
+
+def test_grib_model_levels_without_coefficients_are_refused(tmp_path):
+    u, v, q, ps = _smooth(3)
+    msgs = [message(n, "hybrid", lev, a[0, lev - 1, ::-1]) for n, a in (("u", u), ("v", v), ("q", q)) for lev in (1, 2, 3)]
+    path = tmp_path / "no_pv.grib2"
+    write_grib(path, "regular_ll_pl_grib2", lonlat_keys(WLON, WLAT), msgs)
+    with pytest.raises(FieldsError) as e:
+        grib.open_grib(path)
+    text = str(e.value)
+    assert "no_pv.grib2" in text and "pv array" in text and "PVPresent" in text and "\n" not in text
+
+
+def _uniform_messages(shape, levels=(500, 850)):
+    ones = np.ones(shape)
+    msgs = [message(n, "isobaricInhPa", p, ones * (0.005 if n == "q" else 10.0)) for n in ("u", "v", "q") for p in levels]
+    return msgs + [message("sp", "surface", 0, ones * 1.0e5)]
+
+
+def _transform(proj: str):
+    import pyproj
+
+    return pyproj.Transformer.from_crs("+proj=longlat +R=6371229 +no_defs", proj, always_xy=True)
+
+
+def test_grib_polar_stereographic_grid_keys_against_pyproj(tmp_path):
+    """GRIB2 template 3.20 (ecCodes sample polar_stereographic_pl_grib2): the CF mapping decoded
+    from the grid keys projects like PROJ's stere written by hand from the same keys (north pole,
+    true scale at LaD = 60° N, LoV = 255° E, sphere of 6 371 229 m: shapeOfTheEarth 6), and the
+    points ecCodes computes form a 100 km grid in that plane."""
+    from budget.fields import open_fields
+    from budget.gridmap import GridMapping
+
+    keys = {"Nx": 40, "Ny": 35, "latitudeOfFirstGridPointInDegrees": 30.0, "longitudeOfFirstGridPointInDegrees": 225.0,
+            "LaDInDegrees": 60.0, "orientationOfTheGridInDegrees": 255.0, "DxInMetres": 100000.0,
+            "DyInMetres": 100000.0, "jScansPositively": 1}
+    path = tmp_path / "polar.grib2"
+    # bit 5 of the component flags (value 8): winds along the grid axes (GRIB2 flag table 3.3)
+    write_grib(path, "polar_stereographic_pl_grib2", keys, _uniform_messages((35, 40)),
+               extra={"resolutionAndComponentFlags": 8})
+    gi = grib.open_grib(path)
+    assert gi.ds["u"].attrs["standard_name"] == "grid_eastward_wind"
+    lon, lat = grid_lonlat(path)  # ecCodes' own geometry of the keys
+    x, y = _transform("+proj=stere +lat_0=90 +lat_ts=60 +lon_0=-105 +R=6371229 +units=m +no_defs").transform(lon, lat)
+    np.testing.assert_allclose(np.diff(x, axis=1), 100000.0, rtol=1e-9)
+    np.testing.assert_allclose(np.diff(y, axis=0), 100000.0, rtol=1e-9)
+    mx, my = GridMapping.from_cf(dict(gi.ds["crs"].attrs)).to_native(lon, lat)
+    np.testing.assert_allclose(mx, x, atol=1e-3)
+    np.testing.assert_allclose(my, y, atol=1e-3)
+    fields = open_fields(str(path))
+    assert fields.native_grid.dx == pytest.approx(100000.0, rel=1e-9)
+    assert any("along the grid axes" in w for w in fields.warnings)
+
+
+def test_grib_rotated_pole_grid_keys_against_pyproj(tmp_path):
+    """GRIB2 template 3.1 (ecCodes sample rotated_ll_pl_grib2), southern pole at 39.25° S, 18° E
+    (grid north pole 39.25° N, 162° W): the decoded CF mapping rotates like PROJ's ob_tran written
+    by hand from the southern pole (o_lat_p = −latitude, lon_0 = longitude of the southern pole),
+    and ecCodes' points land on the 1° rotated grid the keys give."""
+    from budget.fields import open_fields
+    from budget.gridmap import GridMapping
+
+    keys = {"Ni": 41, "Nj": 31, "latitudeOfFirstGridPointInDegrees": 15.0, "longitudeOfFirstGridPointInDegrees": -20.0,
+            "latitudeOfLastGridPointInDegrees": -15.0, "longitudeOfLastGridPointInDegrees": 20.0,
+            "iDirectionIncrementInDegrees": 1.0, "jDirectionIncrementInDegrees": 1.0,
+            "latitudeOfSouthernPoleInDegrees": -39.25, "longitudeOfSouthernPoleInDegrees": 18.0,
+            "angleOfRotationInDegrees": 0.0}
+    path = tmp_path / "rotated.grib2"
+    write_grib(path, "rotated_ll_pl_grib2", keys, _uniform_messages((31, 41)))
+    gi = grib.open_grib(path)
+    gm = gi.ds["crs"].attrs
+    assert gm["grid_north_pole_latitude"] == 39.25 and gm["grid_north_pole_longitude"] == -162.0
+    lon, lat = grid_lonlat(path)
+    x, y = _transform("+proj=ob_tran +o_proj=longlat +o_lat_p=39.25 +o_lon_p=0 +lon_0=18 +R=6371229 +no_defs").transform(lon, lat)
+    rx, ry = np.meshgrid(np.arange(-20.0, 20.5, 1.0), np.arange(15.0, -15.5, -1.0))
+    np.testing.assert_allclose(x, rx, atol=1e-5)  # ecCodes' points in PROJ's rotated frame
+    np.testing.assert_allclose(y, ry, atol=1e-5)
+    mx, my = GridMapping.from_cf(dict(gm)).to_native(lon, lat)
+    np.testing.assert_allclose(mx, x, atol=1e-9)
+    np.testing.assert_allclose(my, y, atol=1e-9)
+    fields = open_fields(str(path))
+    assert fields.native_grid.dx == pytest.approx(1.0, rel=1e-6)
+    assert fields.ds["u"].attrs["standard_name"] == "eastward_wind"  # uvRelativeToGrid 0 in the sample
+
+
+def test_report_map_of_the_lambert_nam_file_is_drawn_in_lonlat(tmp_path):
+    """`fluxfence figure` on NCEP grid 211 (2-D latitude/longitude): the map is drawn from the
+    display view (budget.maps.display_snapshot), whose extent is the file's own coordinates."""
+    import subprocess
+    import sys
+
+    from budget.fields import open_fields
+    from budget.maps import display_snapshot
+
+    fields = open_fields(str(NAM))
+    view = display_snapshot(fields, 0)
+    assert view["ivt"].dims == ("lat", "lon")
+    assert float(view["lat"].min()) == pytest.approx(float(np.min(fields.lat)))
+    assert float(view["lon"].min()) == pytest.approx(float(np.min((np.asarray(fields.lon) + 180) % 360 - 180)), abs=1e-6)
+    import shutil
+
+    inputs = tmp_path / "in"
+    inputs.mkdir()
+    nam = inputs / NAM.name
+    shutil.copy(NAM, nam)
+    out = tmp_path / "nam_map.png"
+    r = subprocess.run(
+        [sys.executable, "-m", "app.cli", "figure", str(nam), "--bbox", "-105,35,-90,45", "--layout", "map", "--out", str(out)],
+        capture_output=True, text=True, timeout=600,
+    )
+    assert r.returncode == 0, r.stderr
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # nothing written beside the input (cfgrib's index goes to a private temporary folder)
+    assert [p.name for p in inputs.iterdir()] == [NAM.name]

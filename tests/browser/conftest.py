@@ -138,3 +138,12 @@ def wait_for_series(page, name, timeout=60_000):
         }""",
         arg=name, timeout=timeout,
     )
+
+
+def type_box(page, west, south, east, north):
+    """Add a box through the "Type a box" form (it becomes "Typed box N")."""
+    if not page.is_visible("#box-west"):
+        page.click("#adder-box summary")
+    for field, value in (("west", west), ("south", south), ("east", east), ("north", north)):
+        page.fill(f"#box-{field}", str(value))
+    page.click("#box-add")

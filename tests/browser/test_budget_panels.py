@@ -12,7 +12,7 @@ import time
 import numpy as np
 import pytest
 
-from tests.browser.conftest import graph_traces, wait_for_series
+from tests.browser.conftest import graph_traces, type_box, wait_for_series
 
 pytestmark = pytest.mark.browser
 
@@ -39,12 +39,7 @@ PANEL_LOG = """() => {
 }"""
 
 
-def _type_box(page, west, south, east, north):
-    if not page.is_visible("#box-west"):
-        page.click("#adder-box summary")
-    for field, value in (("west", west), ("south", south), ("east", east), ("north", north)):
-        page.fill(f"#box-{field}", str(value))
-    page.click("#box-add")
+_type_box = type_box
 
 
 def _engine(sample, bbox, **kw):
@@ -252,3 +247,110 @@ def test_dry_air_mode_switches_edges_profile_curtain_and_rate_units(app_page, sa
         "Array.from(document.querySelectorAll('#units input')).map(i => i.value).join() "
         "== 'mm/day,kg/s,m3/s'", timeout=10_000)
     assert page.is_checked("#units input[value='kg/s']")
+
+
+GREY_LOG = """() => {
+    window.__grey = [];
+    const look = (el) => {  // the opacity the eye sees: the element's times its ancestors'
+        let o = 1, f = [];
+        for (let e = el; e && e !== document.body; e = e.parentElement) {
+            const cs = getComputedStyle(e);
+            o *= parseFloat(cs.opacity);
+            if (cs.filter && cs.filter !== 'none') f.push(cs.filter);
+        }
+        return {opacity: o, filter: f.join(' '), cls: el.className,
+                loading: !!el.closest('[data-dash-is-loading="true"]')};
+    };
+    const text = (id) => {
+        const gd = document.querySelector('#' + id + ' .js-plotly-plot');
+        const t = gd && gd.layout && gd.layout.title;
+        const notes = gd && gd.layout && gd.layout.annotations || [];
+        return String((t && (t.text || t)) || '') + ' ' + notes.map(a => a.text).join(' ');
+    };
+    window.__greyTimer = setInterval(() => {
+        const row = {t: performance.now(),
+                     computing: !!document.querySelector('#budget-running')
+                         && getComputedStyle(document.querySelector('#budget-running')).display !== 'none'};
+        for (const id of ['series', 'profile', 'curtain']) {
+            row[id] = {...look(document.getElementById(id)), text: text(id)};
+        }
+        row.table = {...look(document.getElementById('budget-table')),
+                     text: document.getElementById('budget-table').textContent};
+        window.__grey.push(row);
+    }, 20);
+}"""
+PANELS = ("series", "profile", "curtain", "table")
+
+
+def test_panels_are_greyed_and_named_while_a_budget_computes(app_page, sample, paced_engine):
+    """Dash 4: the computed style of every panel during a paced job (opacity, filter)."""
+    page = app_page
+    name = "Typed box 1"
+    page.evaluate(GREY_LOG)
+    _type_box(page, 1, 41, 5, 44)
+    page.wait_for_function(
+        "document.querySelector('#budget-progress-text').textContent.includes('of 30')",
+        timeout=15_000)
+    page.wait_for_timeout(400)  # past the 0.15 s fade
+    log = page.evaluate("() => window.__grey")
+    now = log[-1]
+    assert now["computing"]
+    for panel in PANELS:
+        # greyed by CSS (class "computing" in assets/fluxfence.css) ...
+        assert now[panel]["opacity"] < 0.5, (panel, now[panel])
+        assert "grayscale" in now[panel]["filter"], (panel, now[panel])
+        # ... and named with the region whose budget is on its way, nothing of the old one
+        assert f"Computing the budget of {name}" in now[panel]["text"], (panel, now[panel])
+        assert "Sample basin" not in now[panel]["text"], (panel, now[panel])
+    # before that, while the request was in flight, Dash 4 marked the old panels as loading
+    # (data-dash-is-loading) and the CSS greyed them, still under the old region's name
+    in_flight = [r for r in log if not r["computing"] and any(r[p]["loading"] for p in PANELS)]
+    assert in_flight, "no request in flight was seen"
+    for r in in_flight[10:]:  # after the 0.15 s fade
+        for panel in PANELS:
+            if r[panel]["loading"]:
+                assert r[panel]["opacity"] < 0.5, (panel, r[panel])
+                assert name not in r[panel]["text"], (panel, r[panel])
+    # no sample of the whole log shows the new region's name on a panel at full strength
+    # before its numbers arrived (the fade itself lasts 0.15 s: 8 samples of 20 ms)
+    for panel in PANELS:
+        full = [r for r in log if name in r[panel]["text"] and r[panel]["opacity"] > 0.9]
+        assert len(full) <= 8, (panel, full[:3])
+
+    page.click("#budget-cancel")
+    page.wait_for_selector("#budget-again", state="visible", timeout=10_000)
+    page.wait_for_timeout(400)
+    after = page.evaluate("() => { clearInterval(window.__greyTimer); return window.__grey; }")[-1]
+    for panel in PANELS:  # no longer computing: no longer greyed
+        assert after[panel]["opacity"] > 0.9 and "grayscale" not in after[panel]["filter"], (
+            panel, after[panel])
+
+
+def test_a_region_change_draws_the_map_once(app_page, sample):
+    """Choosing a region clears the region message; that alone must not send the map again
+    (140 KB and a redraw, on the path from a region change to its budget)."""
+    page = app_page
+    posts = []
+    page.on("request", lambda r: posts.append(r.post_data or "")
+            if r.url.split("?")[0].endswith("/_dash-update-component") else None)
+    type_box(page, 2, 42, 7, 46)
+    wait_for_series(page, "Typed box 1")
+    page.wait_for_timeout(800)  # any late request has gone out
+    maps = [p for p in posts if "..map.figure..." in p]
+    assert len(maps) == 1, [p[:120] for p in maps]
+    # the map shows the new region (its outline is on the active layer)
+    names = page.evaluate("() => document.querySelector('#map .js-plotly-plot')._fullData"
+                          ".map(t => t.name)")
+    assert any("Typed box 1" in str(n) for n in names), names
+
+    # choosing another region from the list: the map is sent once more and draws that region
+    # as the chosen one (a second, later request for the same change would replace the first)
+    posts.clear()
+    page.click("#region-select")
+    page.get_by_role("dialog").get_by_role("option", name="Sample basin (invented)").click()
+    wait_for_series(page, "Sample basin (invented)")
+    page.wait_for_timeout(800)
+    assert len([p for p in posts if "..map.figure..." in p]) == 1
+    chosen = page.evaluate("() => document.querySelector('#map .js-plotly-plot')._fullData"
+                           ".filter(t => t.mode === 'lines+markers').map(t => t.name)")
+    assert chosen == ["region: Sample basin (invented)"], chosen

@@ -269,7 +269,7 @@ def test_click_vertices_draw_a_shape_switch_back_and_units(app_page):
 
     # 3. switching back to the first region shows its (cached) series again
     page.click("#region-select")
-    page.get_by_role("option", name="Clicked shape 1").click()
+    page.get_by_role("dialog").get_by_role("option", name="Clicked shape 1").click()
     page.wait_for_function(
         """(want) => {
             const gd = document.querySelector('#series .js-plotly-plot');

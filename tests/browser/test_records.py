@@ -85,9 +85,10 @@ def test_period_selector_switches_series_and_table(app_page, basin_budget):
     np.testing.assert_allclose(np.asarray(bars["y"][:5], float), daily.values[:5], rtol=1e-9)
     title = page.evaluate("() => document.querySelector('#records-series .gtitle').textContent")
     assert "by day" in title and BASIN in title and "mm/day" in title
-    # the plausibility counts sit in the table's footer (the sample has none flagged)
-    foot = page.locator("#records-table tfoot").inner_text()
-    assert "Values flagged by the plausibility checks" in foot
+    # the plausibility counts sit in the footer of both period tables (the sample has none)
+    for table in ("#records-table", "#budget-table table.totals"):
+        foot = page.locator(f"{table} tfoot").first.inner_text()
+        assert foot == "Values flagged by the plausibility checks and accepted (whole record): none"
 
     _choose_period(page, "month")
     page.wait_for_function(
