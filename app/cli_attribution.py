@@ -49,14 +49,11 @@ def budget_options(args, closure):
 
 def refuse_with_many(args) -> None:
     """Events of many regions go into one catalogue with a ``region`` column; one file per
-    region (--each-feature) has no such single table. Layers and another AR threshold are not
-    passed to many-region runs (budget.multi), so they are refused rather than ignored."""
+    region (--each-feature) has no such single table. Layers and the AR threshold reach
+    many-region runs through budget_options (budget.multi.compute_many)."""
     if args.events and args.each_feature:
         raise RequestError("--events writes one catalogue with a region column; leave out --each-feature, "
                            "or pick one region with --feature.")
-    if args.layers or args.ar_threshold is not None:  # budget.multi runs the default attribution only
-        raise RequestError("--layers and --ar-threshold apply to one region at a time for now; pick one with "
-                           "--feature (many-region runs use the common AR threshold of 250 kg m-1 s-1 and no layers).")
 
 
 def event_rule(args):

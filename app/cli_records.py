@@ -143,17 +143,33 @@ def _slug(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9._-]+", "_", name).strip("_") or "region"
 
 
+def _many_outputs(args, out: Path, ids: list) -> tuple[list, dict]:
+    """The files of a many-region run (checked before computing) and its period tables."""
+    if args.each_feature:
+        if out.suffix.lower() in (".csv", ".nc"):
+            raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(out)!r}.")
+        if wanted(args):
+            raise RequestError("--aggregate and --climatology write one table for all regions; leave out --each-feature.")
+        return [out / f"{k:03d}_{_slug(rid)}.csv" for k, rid in enumerate(ids)] + [out / "summary.csv"], {}
+    if out.suffix.lower() not in (".csv", ".nc"):
+        raise RequestError(f"Cannot tell the output format of {str(out)!r}; end the name in .csv (one long table) or .nc.")
+    tables = targets(args, out) if wanted(args) else {}
+    return [out] + list(tables.values()), tables
+
+
 def run_many(args, open_fields, closure, progress, caution: str) -> int:
     """Every feature of --region from one pass over the fields.
 
     Without --each-feature: one long table (``time``, ``region``, columns) in --out (.csv), or
     the budgets with a ``region`` dimension (.nc); --aggregate and --climatology work per
     region. With --each-feature: --out is a folder of one CSV per region plus summary.csv.
+    Finished time blocks wait in the resume folder (--resume-dir, default OUT.partial) until
+    every output is in place, as for a single region (app/runfiles.py).
     """
-
-    from app import cli_attribution
+    from app import cli_attribution, runfiles
     from budget import multi, terms
-    from budget.export import NETCDF_SUFFIXES, encode, frame_csv_text
+    from budget.errors import ResumeMismatch
+    from budget.export import NETCDF_SUFFIXES
     from budget.outputs import Outputs
 
     if args.discharge:
@@ -161,20 +177,9 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
     out = Path(args.out)
     regions, labels = named_regions(args)
     ids = [rid for rid, _ in regions]
-    if args.each_feature:
-        if out.suffix.lower() in (".csv", ".nc"):
-            raise RequestError(f"With --each-feature, --out names a folder, not a file like {str(out)!r}.")
-        if wanted(args):
-            raise RequestError("--aggregate and --climatology write one table for all regions; leave out --each-feature.")
-        files = [out / f"{k:03d}_{_slug(rid)}.csv" for k, rid in enumerate(ids)] + [out / "summary.csv"]
-        tables = {}
-    else:
-        if out.suffix.lower() not in (".csv", ".nc"):
-            raise RequestError(f"Cannot tell the output format of {str(out)!r}; end the name in .csv (one long table) or .nc.")
-        tables = targets(args, out) if wanted(args) else {}
-        files = [out] + list(tables.values())
+    files, tables = _many_outputs(args, out, ids)
     # every output planned and checked before computing, all committed together (budget.outputs)
-    plan = Outputs(inputs=[*args.fields, args.region], overwrite=args.overwrite)
+    plan = Outputs(inputs=runfiles.inputs_of(args), overwrite=args.overwrite)
     if args.each_feature:
         plan.folder(out, "--out")
     for f in dict.fromkeys(files):  # --aggregate writes its table in --out itself
@@ -182,39 +187,52 @@ def run_many(args, open_fields, closure, progress, caution: str) -> int:
     if args.netcdf:
         plan.file(args.netcdf, "--netcdf", NETCDF_SUFFIXES)
     extra = cli_attribution.targets(args, plan)  # --events: one catalogue with a region column
+    partial = runfiles.resume_folder(args, runfiles.default_resume(out), plan)
     fields = open_fields()
     stencils = multi.compile_all(fields, regions, labels)  # every region checked before computing
     for w in fields.warnings:
         print(f"warning: {w}", file=sys.stderr)
-    budgets = multi.compute_each(fields, regions, method=args.method, progress=progress, scheduler=args.scheduler,
-                                 closure=closure, stencils=stencils)
-    for w in multi.warnings_of(budgets, ids):
-        print(f"warning: {w}", file=sys.stderr)
-    stacked = multi.stack(budgets, ids) if (not args.each_feature and (out.suffix.lower() == ".nc" or args.netcdf or tables or extra)) else None
-    summary = multi.summary_frame(budgets, ids)
     with plan:
-        if args.each_feature:
-            plan.make_folders()
-            for b, f in zip(budgets, files):
-                plan.stage(f, encode(b, f))
-        if not args.each_feature and "periods" not in tables:
-            if out.suffix.lower() == ".nc":
-                plan.stage(out, encode(stacked, out))
-            else:
-                plan.stage(out, frame_csv_text(multi.to_long_frame(budgets, ids)))
-        if args.netcdf and stacked is not None:
-            plan.stage(args.netcdf, encode(stacked, args.netcdf))
-        if tables:
-            write_tables(args, stacked, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
-        if extra:
-            cli_attribution.write_tables(args, stacked, extra, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
-        if args.each_feature:
-            summary.insert(1, "file", [f.name for f in files[:-1]])
-            plan.stage(files[-1], frame_csv_text(summary))
-        plan.commit()
+        try:
+            ds = multi.compute_many(fields, regions, progress=progress, scheduler=args.scheduler, stencils=stencils,
+                                    options=cli_attribution.budget_options(args, closure), resume=partial, keep_resume=True)
+        except ResumeMismatch as exc:
+            raise RequestError(runfiles.mismatch_message(exc)) from None
+        for w in multi.warnings_of(ds):
+            print(f"warning: {w}", file=sys.stderr)
+        summary = multi.summary_frame(ds)
+        try:
+            runfiles.hold("computed")
+            _stage_many(args, plan, ds, out, files, tables, summary, extra)
+            plan.commit()
+        except KeyboardInterrupt:
+            raise runfiles.WriteInterrupted(partial) from None
+    runfiles.discard(partial)
     if not args.quiet:
         pme = f"mean_{terms.term('p_minus_e').columns[0].name}"
         print(summary[["region", "area_km2"] + [c for c in (pme,) if c in summary]].to_string(index=False))
-        print(f"wrote {len(budgets)} budgets in one pass: " + (f"{out}/ and summary.csv" if args.each_feature else str(out)))
+        print(f"wrote {ds.sizes['region']} budgets in one pass: " + (f"{out}/ and summary.csv" if args.each_feature else str(out)))
         print(caution)
     return 0
+
+
+def _stage_many(args, plan, ds, out: Path, files: list, tables: dict, summary, extra: dict) -> None:
+    """Stage every output of a many-region run in the transaction ``plan``."""
+    from app import cli_attribution
+    from budget import multi
+    from budget.export import encode, frame_csv_text
+
+    if args.each_feature:
+        plan.make_folders()
+        for b, f in zip(multi.unstack(ds), files):
+            plan.stage(f, encode(b, f))
+        summary.insert(1, "file", [f.name for f in files[:-1]])
+        plan.stage(files[-1], frame_csv_text(summary))
+    elif "periods" not in tables:
+        plan.stage(out, encode(ds, out) if out.suffix.lower() == ".nc" else frame_csv_text(multi.to_long_frame(ds)))
+    if args.netcdf:  # every region with a region dimension, also beside --each-feature's folder
+        plan.stage(args.netcdf, encode(ds, args.netcdf))
+    if tables:
+        write_tables(args, ds, tables, write=lambda df, path: plan.stage(path, frame_csv_text(df)))
+    if extra:  # --events: one catalogue with a region column
+        cli_attribution.write_tables(args, ds, extra, write=lambda df, path: plan.stage(path, frame_csv_text(df)))

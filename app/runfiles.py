@@ -68,6 +68,13 @@ def discard(folder: Path) -> None:
 
 
 def mismatch_message(exc: ResumeMismatch) -> str:
+    import re
+
+    version = re.search(r"another version of Fluxfence \(([^)]*)\)", str(exc))
+    if version:  # an older (or newer) BlockSums format: never misread, say so
+        return (f"The resume folder {str(exc.path)!r} holds finished steps written by another version of "
+                f"Fluxfence ({version.group(1)}); pass --restart to discard them, or --resume-dir DIR to "
+                "keep them and run in another folder.")
     return (f"The resume folder {str(exc.path)!r} holds finished steps of a different run (other fields, "
             "region, time window or options); pass --restart to discard them, or --resume-dir DIR to keep "
             "them and resume this run in another folder.")

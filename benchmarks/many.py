@@ -14,7 +14,8 @@ quadrilaterals over 5–25° E, 40–60° N; not real places). "one basin" is th
 
 Rows (each the best of 3 runs in this process; page cache warmed first):
 - one basin: budget.compute with a precompiled stencil;
-- N basins, one pass: budget.multi.compute_each with precompiled stencils;
+- N basins, one pass: budget.multi.compute_many with precompiled stencils (it stacks them into
+  one sparse operator per term, budget.stacked, inside the timed call);
 - N basins, one run each: budget.compute in a loop (what --each-feature did before);
 - by hand, full grid: a careful user's xarray budget on the whole grid per basin (centred
   differences on the sphere, a cell-centre mask, cos φ-weighted means), as in benchmarks/run.py;
@@ -175,7 +176,7 @@ def run(nt: int, nbasins: int) -> dict:
     import xarray as xr
 
     import budget
-    from budget.multi import compile_all, compute_each
+    from budget.multi import compile_all, compute_many, unstack
     from budget.region import region_from_vertices
 
     warnings.simplefilter("ignore")
@@ -187,7 +188,8 @@ def run(nt: int, nbasins: int) -> dict:
     budget.compute(fields, named[0][1], stencil=stencils[0])  # warm: imports, page cache
     r = {"steps": nt, "basins": nbasins}
     r["one_s"], one = best_of(lambda: budget.compute(fields, named[0][1], stencil=stencils[0]))
-    r["many_s"], many = best_of(lambda: compute_each(fields, named, stencils=stencils))
+    r["many_s"], stacked = best_of(lambda: compute_many(fields, named, stencils=stencils))
+    many = unstack(stacked)
     t = time.perf_counter()
     singles = [budget.compute(fields, reg, stencil=st) for (_, reg), st in zip(named, stencils)]
     r["loop_s"] = time.perf_counter() - t

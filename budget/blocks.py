@@ -16,6 +16,10 @@ memory stays flat however long the record is.
 `BlockSums` is what a block hands back: every per-time-step sum the budget needs, typed.  It is
 also what a resume folder keeps on disk (``to_arrays`` / ``from_arrays``, with a format
 version, so a folder written by an older version is refused with a sentence, never misread).
+Many regions in one pass (budget.stacked) use the same class with a region axis after time
+and per-edge sums NaN-padded (``of_region`` cuts one region out); the on-disk layout is the
+same, and the resume key of such a run names all its regions, so a single run's folder and a
+many-region run's folder are never taken for each other.
 """
 
 from __future__ import annotations
@@ -125,16 +129,26 @@ def gather(data, cells: Cells, tslice: slice):
     ydim, xdim = cells.dims
     slabs = [ds.isel({"time": tslice, ydim: slice(r0, r1), xdim: slice(c0, c1)}) for r0, r1 in rr for c0, c1 in cr]
     slabs = dask.compute(*slabs, scheduler="synchronous")
+    # each slab's cells as flat positions in the slab (np.take on a flat slab is several times
+    # faster than indexing two axes with index arrays)
+    picks = []
+    for a, (r0, r1) in enumerate(rr):
+        for b, (c0, c1) in enumerate(cr):
+            sel = np.flatnonzero((ri == a) & (ci == b))
+            if sel.size:
+                picks.append((a * len(cr) + b, sel, (rows[sel] - r0) * (c1 - c0) + (cols[sel] - c0)))
     out = {}
     for name in ds.data_vars:
         lead = slabs[0][name].shape[:-2]
+        if len(picks) == 1:  # one slab holds every cell, in order
+            k, _, flat = picks[0]
+            vals = np.asarray(slabs[k][name].values)
+            out[name] = np.take(vals.reshape(lead + (-1,)), flat, axis=-1).astype(np.float64, copy=False)
+            continue
         arr = np.empty(lead + (rows.size,), np.float64)
-        for a, (r0, _) in enumerate(rr):
-            for b, (c0, _) in enumerate(cr):
-                sel = np.flatnonzero((ri == a) & (ci == b))
-                if sel.size:
-                    vals = np.asarray(slabs[a * len(cr) + b][name].values)
-                    arr[..., sel] = vals[..., rows[sel] - r0, cols[sel] - c0]
+        for k, sel, flat in picks:
+            vals = np.asarray(slabs[k][name].values)
+            arr[..., sel] = np.take(vals.reshape(lead + (-1,)), flat, axis=-1)
         out[name] = arr
     return out["_"] if one else out
 
@@ -161,6 +175,9 @@ class Gatherer:
 BLOCK_FORMAT = 4
 
 _VERSION_KEY = "fluxfence_block_format"
+
+#: BlockSums fields whose last axis is the region's edges (a new per-edge sum goes here too).
+EDGE_FIELDS = ("edge", "w_edge", "dedge", "ar_edge", "layer_edge")
 
 
 @dataclass
@@ -229,6 +246,18 @@ class BlockSums:
         names = {f.name for f in dc_fields(cls)} - {"flagged"}
         flagged = {k.split(":", 1)[1]: int(v) for k, v in arrays.items() if k.startswith("flagged:")}
         return cls(**{k: v for k, v in arrays.items() if k in names}, flagged=flagged)
+
+    def of_region(self, k: int, nedge: int) -> "BlockSums":
+        """Region ``k`` of a stacked BlockSums (budget.stacked: a region axis after time, per-edge
+        sums NaN-padded on the last axis) as one region's BlockSums, with its ``nedge`` edges."""
+        kw = {}
+        for f in dc_fields(self):
+            value = getattr(self, f.name)
+            if f.name == "flagged" or value is None:
+                continue
+            value = value[:, k]
+            kw[f.name] = value[..., :nedge] if f.name in EDGE_FIELDS else value
+        return type(self)(**kw, flagged=dict(self.flagged))
 
     @classmethod
     def concat(cls, parts: list) -> "BlockSums":

@@ -46,7 +46,15 @@ def _job_key(func, st, ds, region, chunk) -> str:
     from dask.base import tokenize
 
     geo = region.to_geojson() if hasattr(region, "to_geojson") else None
-    files = [str(f) for f in getattr(func.args[0], "files", [])]
+    return tokenize(
+        source_token(func.args[0], ds), json.dumps(geo, sort_keys=True, default=str), int(chunk),
+        repr(sorted(func.keywords.items())), st.touched, st.cover, st.bu.data, st.bv.data, st.div_u, st.div_v,
+    )
+
+
+def source_token(fields, ds):
+    """What a resume key needs to know of the inputs (``ds``: the windowed fields)."""
+    files = [str(f) for f in getattr(fields, "files", [])]
     if files and all(os.path.exists(f) for f in files):
         # inputs from files: their names, sizes and times, and what was read from them (dask
         # names of lazily opened files change from one process to the next)
@@ -57,10 +65,7 @@ def _job_key(func, st, ds, region, chunk) -> str:
         )
     else:
         source = ds  # data in memory: its values
-    return tokenize(
-        source, json.dumps(geo, sort_keys=True, default=str), int(chunk), repr(sorted(func.keywords.items())),
-        st.touched, st.cover, st.bu.data, st.bv.data, st.div_u, st.div_v,
-    )
+    return source
 
 
 @dataclass
@@ -242,11 +247,13 @@ def budget_dataset(fields, region, st: Stencil, times, sums: BlockSums, options:
     return _assemble(fields, region, st, times, sums, closed, options, ds)
 
 
-def _vapour_variables(sums: BlockSums, v: closure.VapourTerms, method: str) -> dict:
-    """The vapour terms, their attributes from the term catalogue (budget.terms)."""
+def vapour_variables(sums: BlockSums, v: closure.VapourTerms, method: str, dims=("time",)) -> dict:
+    """The vapour terms, their attributes from the term catalogue (budget.terms); ``dims`` are
+    the series' dimensions (("time", "region") for budget.multi's stacked sums)."""
     conv = terms.term(f"{method}_convergence").method  # the primary estimate's method text
+    series = tuple(dims)
 
-    def var(name, data, dims=("time",), method=None):
+    def var(name, data, dims=series, method=None):
         return xr.Variable(dims, data, terms.attrs(name, method))
 
     return {
@@ -259,7 +266,7 @@ def _vapour_variables(sums: BlockSums, v: closure.VapourTerms, method: str) -> d
         "area_convergence": var("area_convergence", v.aconv),
         "vapour_convergence": var("vapour_convergence", v.conv, method=f"{method} method: {conv}"),
         "p_minus_e": var("p_minus_e", v.pme),
-        "edge_import": var("edge_import", v.edge, dims=("time", "edge")),
+        "edge_import": var("edge_import", v.edge, dims=series + ("edge",)),
     }
 
 
@@ -287,7 +294,8 @@ def _profile_variables(sums: BlockSums, st: Stencil, ds, dv: dict, coords: dict)
                                                         terms.attrs("dry_air_normal_flux_density"))
 
 
-def _warnings(fields, st, times, sums: BlockSums, closed) -> list:
+def budget_warnings(fields, st, times, sums: BlockSums, closed) -> list:
+    """Every warning of one region's budget: stencil, fields, single step, flagged values, closure."""
     out = list(st.warnings) + list(getattr(fields, "warnings", []))
     if not has_tendency(times):
         out.append(SINGLE_STEP_NOTE)
@@ -298,7 +306,7 @@ def _warnings(fields, st, times, sums: BlockSums, closed) -> list:
 
 def _assemble(fields, region, st, times, sums: BlockSums, closed, options: BudgetOptions, ds) -> xr.Dataset:
     method = options.method
-    dv = _vapour_variables(sums, closed.vapour, method)
+    dv = vapour_variables(sums, closed.vapour, method)
     bnd = st.boundary
     coords = {
         "time": ("time", times),
@@ -311,12 +319,31 @@ def _assemble(fields, region, st, times, sums: BlockSums, closed, options: Budge
     coords.update(acoords)
     out = xr.Dataset(dv, coords=coords)
     out["time"].attrs.update({"long_name": "time", "standard_name": "time"})
+    out.attrs.update(region_attrs(region, st))
+    out.attrs.update(shared_attrs(fields, method, sums))
+    for name, v in closed.variables.items():
+        out[name] = v
+    out.attrs.update(closed.attrs)
+    mark_correction(out, closed.correction.sentence)
+    out.attrs["warnings"] = json.dumps(budget_warnings(fields, st, times, sums, closed))
+    return out
+
+
+def region_attrs(region, st) -> dict:
+    """The budget's attributes that belong to its region (budget.multi makes them coordinates)."""
     geo = region.to_geojson() if hasattr(region, "to_geojson") else None
-    scheme = fields.vertical.scheme if fields.vertical is not None else "pre-integrated columns from the files"
-    out.attrs.update({
+    return {
         "title": f"Fluxfence water-vapour budget of {getattr(region, 'name', None) or 'the region'}",
         "region_name": getattr(region, "name", None) or "region",
         "region_area_m2": float(st.area),
+        "region_geojson": json.dumps(geo) if geo is not None else "",
+    }
+
+
+def shared_attrs(fields, method: str, sums: BlockSums) -> dict:
+    """The budget's attributes that come from the inputs and options, not the region."""
+    scheme = fields.vertical.scheme if fields.vertical is not None else "pre-integrated columns from the files"
+    return {
         "method": method,
         "vertical_scheme": scheme,
         "roles": json.dumps(fields.roles),
@@ -324,20 +351,17 @@ def _assemble(fields, region, st, times, sums: BlockSums, closed, options: Budge
         "input_files": json.dumps([str(f) for f in fields.files]),
         "software": "fluxfence",
         "software_version": __version__,
-        "region_geojson": json.dumps(geo) if geo is not None else "",
         "flagged_values": json.dumps({k: int(n) for k, n in sorted(sums.flagged.items())}),
         "sign_convention": "import and convergence positive when the region gains moisture",
         "Conventions": "CF-1.10",
-    })
-    for name, v in closed.variables.items():
-        out[name] = v
-    out.attrs.update(closed.attrs)
-    state = closed.correction.sentence
+    }
+
+
+def mark_correction(out: xr.Dataset, sentence: str) -> None:
+    """Say on each vapour variable whether the mass correction is in it."""
     for name in ("vapour_import", "edge_import", "boundary_convergence", "area_convergence", "vapour_convergence", "p_minus_e"):
-        out[name].attrs["mass_correction"] = state
+        out[name].attrs["mass_correction"] = sentence
     for name in ("inflow", "outflow", "boundary_import_density", "normal_flux_density", "dry_air_import",
                  "dry_air_edge_import", "dry_air_import_density", "dry_air_normal_flux_density"):
         if name in out:
             out[name].attrs["mass_correction"] = "not included: from the files' winds"
-    out.attrs["warnings"] = json.dumps(_warnings(fields, st, times, sums, closed))
-    return out

@@ -343,11 +343,28 @@ def divergence_operator(grid: Grid, cells: np.ndarray, radius: float = EARTH_RAD
 
 # -- the stencil -----------------------------------------------------------------------
 @dataclass
-class Stencil:
-    """Sparse weights of one region on one grid, acting on the touched cells."""
+class TouchedCells:
+    """Cells of a grid that a computation reads: sorted flat indices, and their rows and columns.
+
+    The one home of the touched-cell view: a `Stencil` is one, and so is the union of several
+    stencils' cells (budget.multi); reads (budget.blocks) need nothing more."""
 
     grid: Grid  # or a budget.gridmap.ProjectedGrid
     touched: np.ndarray  # flat indices into the grid, sorted
+
+    @property
+    def rows(self):
+        return self.touched // self.grid.shape[1]
+
+    @property
+    def cols(self):
+        return self.touched % self.grid.shape[1]
+
+
+@dataclass
+class Stencil(TouchedCells):
+    """Sparse weights of one region on one grid, acting on the touched cells."""
+
     boundary: Boundary
     bu: sp.csr_matrix  # (npiece × ntouched): outward flux of each piece from Qu
     bv: sp.csr_matrix
@@ -358,14 +375,6 @@ class Stencil:
     edge_sum: sp.csr_matrix  # (nedge × npiece)
     area: float  # m2, the region's exact spherical area
     warnings: list = field(default_factory=list)
-
-    @property
-    def rows(self):
-        return self.touched // self.grid.shape[1]
-
-    @property
-    def cols(self):
-        return self.touched % self.grid.shape[1]
 
     @property
     def piece_length(self):

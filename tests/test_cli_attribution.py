@@ -162,10 +162,11 @@ def test_datasets_input_as_output_refused(demo, tmp_path, capsys, monkeypatch):
     assert (d / "moist.nc").read_bytes() == before
 
 
-@pytest.mark.parametrize("extra", [["--layers", "1000,850,700"], ["--ar-threshold", "300"]])
-def test_many_regions_refuse_options_they_would_ignore(demo, tmp_path, capsys, extra):
-    # many-region runs (budget.multi) carry the default attribution only: an option that would
-    # be silently ignored is refused with one sentence instead
+@pytest.mark.parametrize("extra, column", [(["--layers", "1000,850,700"], "layer_1000_850hPa_import_kg_s"),
+                                           (["--ar-threshold", "300"], "ar_inflow_kg_s")])
+def test_many_regions_carry_layers_and_the_ar_threshold(demo, tmp_path, capsys, extra, column):
+    # many-region runs (budget.multi.compute_many) carry the attribution options; reference:
+    # each region's single run with the same option (--feature), whose CSV keeps 6 digits
     import json
 
     from tests.test_multi import collection
@@ -173,7 +174,10 @@ def test_many_regions_refuse_options_they_would_ignore(demo, tmp_path, capsys, e
     d, paths = demo
     regions = tmp_path / "three.geojson"
     regions.write_text(json.dumps(collection()))
-    code = main(["run", paths.levels, "--region", regions, "--out", tmp_path / "long.csv", "--quiet", *extra])
-    err = capsys.readouterr().err
-    assert code != 0 and code != 70 and "--feature" in err and len(err.strip().splitlines()) == 1
-    assert not (tmp_path / "long.csv").exists()
+    assert main(["run", paths.levels, "--region", regions, "--out", tmp_path / "long.csv", "--quiet", *extra]) == 0
+    long = pd.read_csv(tmp_path / "long.csv")
+    assert main(["run", paths.levels, "--region", regions, "--feature", "East Ridge", "--out", tmp_path / "one.csv",
+                 "--quiet", *extra]) == 0
+    one = pd.read_csv(tmp_path / "one.csv")
+    got = long.loc[long["region"] == "East Ridge", column].to_numpy()
+    np.testing.assert_allclose(got, one[column].to_numpy(), rtol=1e-5, atol=1e-5 * float(np.abs(one[column]).max()))

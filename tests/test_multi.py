@@ -8,7 +8,7 @@ import xarray as xr
 
 import budget
 from budget.errors import RegionError
-from budget.multi import compute_each, compute_many, restrict, to_long_frame, union_of
+from budget.multi import compute_each, compute_many, to_long_frame, union_of
 from budget.region import load_region
 
 # Three invented basins inside the sample's domain (10° W–20° E, 35–55° N): a large one, one
@@ -93,12 +93,6 @@ def test_the_union_is_read_once_and_cells_are_taken_exactly(sample, basins_file)
     # nested basin: every cell of Inner Fen is also a cell of Broad Vale, so the union adds none
     assert np.isin(sts[1].touched, sts[0].touched).all()
     assert union.touched.size < sum(st.touched.size for st in sts)
-    cols = budget.ledger.Columns(qu=np.arange(12.0).reshape(2, 6), qv=np.zeros((2, 6)), w=np.ones((2, 6)),
-                                 extra={"mu": np.arange(12.0).reshape(2, 6), "_condensate": ["ql"]})
-    got = restrict(cols, np.array([1, 4]), 6)
-    np.testing.assert_array_equal(got.qu, [[1, 4], [7, 10]])
-    np.testing.assert_array_equal(got.extra["mu"], [[1, 4], [7, 10]])
-    assert got.extra["_condensate"] == ["ql"]
 
 
 def test_long_table_has_region_after_time(sample, basins_file):
@@ -106,8 +100,9 @@ def test_long_table_has_region_after_time(sample, basins_file):
 
     fields = budget.open_fields(sample.column)
     regions = named(basins_file)
-    many = compute_each(fields, regions)
-    df = to_long_frame(many, list(BASINS))
+    stacked = compute_many(fields, regions)
+    many = budget.multi.unstack(stacked)
+    df = to_long_frame(stacked)
     assert list(df.columns[:2]) == ["time", "region"]
     assert len(df) == 3 * fields.ds.sizes["time"]
     for rid, b in zip(BASINS, many):
@@ -173,3 +168,56 @@ def test_cli_names_an_invalid_basin_and_skips_it_when_asked(sample, tmp_path):
     r = cli("run", sample.column, "--region", path, "--feature", "Inner Fen", "--out", tmp_path / "one.csv", "--quiet")
     assert r.returncode == 0, r.stderr
     assert "region" not in pd.read_csv(tmp_path / "one.csv").columns
+
+
+LAYERS = "1000,850,700,500,300"
+
+
+def test_layers_of_each_region_sum_to_its_column_and_equal_its_single_run(sample, basins_file):
+    # References: (1) the layers tile the air column above the ground (budget.layers; the
+    # mass-weighted layer sum of Boer 1982 and Trenberth 1991, CHECKS.md), so with the mass
+    # correction off the layer imports add up to the column import of the files' winds to
+    # round-off; (2) each region's single run of budget.compute with the same layers.
+    from budget.attribution import AttributionOptions
+    from budget.layers import parse_layers
+    from budget.options import BudgetOptions, ClosureOptions
+
+    fields = budget.open_fields(sample.levels)
+    regions = named(basins_file)
+    opts = BudgetOptions(closure=ClosureOptions(mass_correction="off"), attribution=AttributionOptions(layers=parse_layers(LAYERS)))
+    ds = compute_many(fields, regions, options=opts)
+    assert ds["layer_edge_import"].dims == ("region", "time", "layer", "edge")
+    np.testing.assert_allclose(ds["layer_import"].sum("layer").values, ds["vapour_import"].values, rtol=1e-9)
+    for k, ((rid, region), got) in enumerate(zip(regions, budget.multi.unstack(ds))):
+        one = budget.compute(fields, region, options=opts)
+        n = one.sizes["edge"]
+        for v in ("layer_import", "layer_convergence", "layer_edge_import"):
+            same(got[v].values, one[v].values, f"{rid}: {v}")
+        np.testing.assert_allclose(ds["layer_edge_import"].values[k, :, :, :n].sum(axis=1), one["edge_import"].values,
+                                   rtol=1e-9, atol=1e-9 * float(np.abs(one["edge_import"]).max()))
+        assert np.isnan(ds["layer_edge_import"].values[k, :, :, n:]).all()
+
+
+def test_cli_layers_for_many_regions_reach_the_long_table(sample, basins_file, tmp_path):
+    # Reference: each region's single run (budget.compute with the same layers) through
+    # budget.export.to_frame, the writer of a single run's CSV; the CSV keeps 6 digits.
+    import pandas as pd
+
+    from budget.attribution import AttributionOptions
+    from budget.export import to_frame
+    from budget.layers import parse_layers
+    from budget.options import BudgetOptions
+
+    out = tmp_path / "layers.csv"
+    r = cli("run", sample.levels, "--region", basins_file, "--layers", LAYERS, "--out", out, "--quiet")
+    assert r.returncode == 0, r.stderr
+    df = pd.read_csv(out)
+    cols = [c for c in df.columns if c.startswith("layer_") and c.endswith("_import_kg_s")]
+    assert "layer_1000_850hPa_import_kg_s" in cols and len(cols) == 6  # with sfc–1000 and 300–top
+    fields = budget.open_fields(sample.levels)
+    opts = BudgetOptions(attribution=AttributionOptions(layers=parse_layers(LAYERS)))
+    for rid, region in named(basins_file):
+        one = to_frame(budget.compute(fields, region, options=opts))
+        part = df[df["region"] == rid]
+        for c in cols:
+            np.testing.assert_allclose(part[c], one[c], rtol=1e-5, atol=1e-5 * float(np.abs(one[c]).max()))
