@@ -7,6 +7,7 @@ screenshot under a temporary folder (printed at the end of the session).
 
 from __future__ import annotations
 
+import contextlib
 import threading
 from pathlib import Path
 
@@ -147,3 +148,35 @@ def type_box(page, west, south, east, north):
     for field, value in (("west", west), ("south", south), ("east", east), ("north", north)):
         page.fill(f"#box-{field}", str(value))
     page.click("#box-add")
+
+
+_SERVE = """
+import json, sys
+from werkzeug.serving import make_server
+from app.server import create_app
+app = create_app(cache_dir=sys.argv[1], **json.loads(sys.argv[2]))
+server = make_server("127.0.0.1", 0, app.server, threaded=True)
+print(server.server_port, flush=True)
+server.serve_forever()
+"""
+
+
+@contextlib.contextmanager
+def own_dashboard(cache_dir, **create_app_args):
+    """A dashboard in its own process (Dash's callbacks and the server's state are per process,
+    so the session's sample dashboard is left alone); yields its URL, stops it on the way out.
+    ``create_app_args`` are create_app's (paths=[...], data_dir=...), as JSON."""
+    import json
+    import os
+    import subprocess
+    import sys
+
+    args = json.dumps({k: (list(map(str, v)) if isinstance(v, list) else str(v))
+                       for k, v in create_app_args.items()})
+    proc = subprocess.Popen([sys.executable, "-c", _SERVE, str(cache_dir), args],
+                            stdout=subprocess.PIPE, text=True, env=dict(os.environ))
+    try:
+        yield f"http://127.0.0.1:{int(proc.stdout.readline())}"
+    finally:
+        proc.terminate()
+        proc.wait(timeout=30)

@@ -17,11 +17,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
 import xarray as xr
 
 from budget import testing
 from budget.gridmap import GridMapping, ProjectedGrid
-from tests.browser.conftest import Watch, graph_traces, to_pixels, wait_for_series
+from tests.browser.conftest import Watch, graph_traces, own_dashboard, to_pixels, wait_for_series
 
 pytestmark = pytest.mark.browser
 
@@ -61,15 +62,6 @@ def rotated_file(path: Path) -> None:
     ds.to_netcdf(path)
 
 
-SERVE = """
-import sys
-from werkzeug.serving import make_server
-from app.server import create_app
-app = create_app(data_dir=sys.argv[1], cache_dir=sys.argv[2])
-server = make_server("127.0.0.1", 0, app.server, threaded=True)
-print(server.server_port, flush=True)
-server.serve_forever()
-"""
 
 
 @pytest.fixture(scope="module")
@@ -77,22 +69,11 @@ def files_dashboard(tmp_path_factory):
     """A dashboard serving a data folder with the NAM GRIB sample and a rotated-pole NetCDF, in
     its own process (Dash's callbacks and the server's state are per process, so the session's
     sample dashboard in tests/browser/conftest.py is left alone)."""
-    import os
-    import subprocess
-    import sys
-
     folder = tmp_path_factory.mktemp("data-dir")
     shutil.copy(NAM, folder / NAM.name)
     rotated_file(folder / "rotated_pole.nc")
-    cache = tmp_path_factory.mktemp("dash-cache")
-    proc = subprocess.Popen([sys.executable, "-c", SERVE, str(folder), str(cache)],
-                            stdout=subprocess.PIPE, text=True, env=dict(os.environ))
-    try:
-        port = int(proc.stdout.readline())
-        yield {"url": f"http://127.0.0.1:{port}", "folder": folder}
-    finally:
-        proc.terminate()
-        proc.wait(timeout=30)
+    with own_dashboard(tmp_path_factory.mktemp("dash-cache"), data_dir=folder) as url:
+        yield {"url": url, "folder": folder}
 
 
 def _heat(page) -> dict:

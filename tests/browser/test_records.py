@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tests.browser.conftest import graph_traces, wait_for_series
+from tests.browser.conftest import own_dashboard, graph_traces, wait_for_series
 
 pytestmark = pytest.mark.browser
 
@@ -211,15 +211,6 @@ def test_ticked_regions_overlay_each_under_its_own_name(app_page, basin_budget):
 # a three-year invented record, served by a dashboard in its own process (Dash's callbacks
 # and the server's state are per process, so the sample dashboard above is left alone)
 # ---------------------------------------------------------------------------------------------
-SERVE = """
-import sys
-from werkzeug.serving import make_server
-from app.server import create_app
-app = create_app(paths=[sys.argv[1]], cache_dir=sys.argv[2])
-server = make_server("127.0.0.1", 0, app.server, threaded=True)
-print(server.server_port, flush=True)
-server.serve_forever()
-"""
 
 LONG_BOX = (5, 35, 15, 45)  # W, S, E, N inside the invented grid
 
@@ -257,20 +248,10 @@ def three_year_fields(path):
 
 @pytest.fixture(scope="module")
 def long_record(tmp_path_factory):
-    import os
-    import subprocess
-    import sys
-
     folder = tmp_path_factory.mktemp("long-record")
     fields = three_year_fields(folder / "invented_three_years.nc")
-    proc = subprocess.Popen([sys.executable, "-c", SERVE, str(fields), str(folder / "cache")],
-                            stdout=subprocess.PIPE, text=True, env=dict(os.environ))
-    try:
-        port = int(proc.stdout.readline())
-        yield {"url": f"http://127.0.0.1:{port}", "fields": fields}
-    finally:
-        proc.terminate()
-        proc.wait(timeout=30)
+    with own_dashboard(folder / "cache", paths=[fields]) as url:
+        yield {"url": url, "fields": fields}
 
 
 @pytest.fixture(scope="module")
